@@ -1,0 +1,74 @@
+"""Public entry points: :func:`track` for arrays, :func:`track_file` for files."""
+
+from __future__ import annotations
+
+import os
+
+from .audio import load
+from .config import make_config
+from .track import Track
+from .tracker import track_signal
+
+__all__ = ["track", "track_file"]
+
+
+def track(y, sr: float, preset: str = "voice", *, fmin=None, fmax=None, hop_s: float = 0.01,
+          **options) -> Track:
+    """Track the f0, voicing and harmonic amplitudes of a recording.
+
+    Parameters
+    ----------
+    y : array_like, shape (n,) or (channels, n)
+        Samples (float, any scale).  Several channels are averaged (with a warning).
+    sr : float
+        Sample rate in Hz (8 kHz to 192 kHz are routine; higher rates are resampled).
+    preset : str
+        ``"voice"`` (speech, 50-800 Hz) or ``"singing"`` (60-1600 Hz); see
+        :data:`harmtrack.PRESETS`.
+    fmin, fmax : float, optional
+        Search range of f0 in Hz; the preset's range when omitted.
+    hop_s : float
+        Frame hop in seconds (0.001 to 0.1).
+    **options
+        Any other :class:`harmtrack.TrackerConfig` field, by keyword
+        (``frame_s``, ``max_harmonics``, ``smoothing``, ``prewhiten``...).
+
+    Returns
+    -------
+    Track
+        ``times``, ``f0_hz``, ``voiced``, ``voicing_prob``, ``harmonic_amplitudes``,
+        ``model_order``, ``hnr_db`` and the settings used.
+
+    Raises
+    ------
+    HarmtrackError
+        A setting out of range, an unknown preset, or unusable samples (empty,
+        non-finite, shorter than one frame).
+
+    Notes
+    -----
+    A harmonic-summation search on a logarithmic f0 grid proposes candidates in
+    every frame; an exact nonlinear least-squares fit of the harmonic model with
+    MAP model-order selection refines the chosen f0 and gives the amplitudes; a
+    Viterbi smoother over the candidates and an unvoiced state picks the track.
+
+    References
+    ----------
+    M. G. Christensen and A. Jakobsson, *Multi-Pitch Estimation*, Morgan & Claypool, 2009.
+    """
+    cfg = make_config(preset, fmin_hz=fmin, fmax_hz=fmax, hop_s=hop_s, **options)
+    return track_signal(y, sr, cfg)
+
+
+def track_file(path: str | os.PathLike, preset: str = "voice", *, fmin=None, fmax=None,
+               hop_s: float = 0.01, **options) -> Track:
+    """Like :func:`track`, reading the samples from an audio file.
+
+    The returned track's ``settings`` also hold an ``"input"`` entry with the file's
+    path, SHA-256, sample rate and channel count.
+    """
+    cfg = make_config(preset, fmin_hz=fmin, fmax_hz=fmax, hop_s=hop_s, **options)
+    y, sr, info = load(path)
+    tr = track_signal(y, sr, cfg, name=os.fspath(path))
+    tr.settings["input"] = info.as_dict()
+    return tr

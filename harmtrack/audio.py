@@ -1,0 +1,174 @@
+"""Audio input: reading files, mono mix-down, resampling and sanity checks."""
+
+from __future__ import annotations
+
+import hashlib
+import os
+from dataclasses import dataclass
+from fractions import Fraction
+
+import numpy as np
+from scipy import signal as sps
+
+from .errors import InputError, warn
+
+__all__ = ["AudioInfo", "load", "as_mono", "check_signal", "resample", "file_sha256"]
+
+
+@dataclass(frozen=True)
+class AudioInfo:
+    """What was read from an audio file."""
+
+    path: str
+    sr: float
+    channels: int
+    frames: int
+    format: str
+    subtype: str
+    sha256: str
+
+    def as_dict(self) -> dict:
+        return dict(path=self.path, sr=self.sr, channels=self.channels, frames=self.frames,
+                    format=self.format, subtype=self.subtype, sha256=self.sha256)
+
+
+def file_sha256(path: str, *, chunk: int = 1 << 20) -> str:
+    """SHA-256 of a file's bytes, hex."""
+    h = hashlib.sha256()
+    with open(path, "rb") as f:
+        while True:
+            b = f.read(chunk)
+            if not b:
+                break
+            h.update(b)
+    return h.hexdigest()
+
+
+def load(path: str | os.PathLike) -> tuple[np.ndarray, float, AudioInfo]:
+    """Read an audio file as float64 mono samples.
+
+    Returns
+    -------
+    y : ndarray, shape (n,)
+        Samples, full scale = 1.0; channels averaged (with a warning).
+    sr : float
+        Sample rate, Hz.
+    info : AudioInfo
+
+    Raises
+    ------
+    InputError
+        Missing, unreadable, truncated or empty file, or non-finite samples.
+    """
+    import soundfile as sf
+
+    path = os.fspath(path)
+    if not os.path.exists(path):
+        raise InputError(f"{path}: no such file")
+    if os.path.isdir(path):
+        raise InputError(f"{path}: is a folder, not an audio file")
+    if not os.access(path, os.R_OK):
+        raise InputError(f"{path}: permission denied")
+    try:
+        with sf.SoundFile(path) as f:
+            sr = float(f.samplerate)
+            declared = f.frames
+            channels = f.channels
+            fmt, subtype = f.format, f.subtype
+            data = f.read(dtype="float64", always_2d=True)
+    except (sf.LibsndfileError, RuntimeError, TypeError, ValueError) as exc:
+        reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise InputError(f"{path}: not a readable audio file ({reason})") from None
+    if data.shape[0] < declared:
+        raise InputError(
+            f"{path}: truncated audio file ({data.shape[0]} of {declared} declared samples readable)"
+        )
+    if fmt == "WAV" and subtype.startswith("PCM"):
+        _check_wav_size(path, declared, channels, subtype)
+    if data.shape[0] == 0:
+        raise InputError(f"{path}: contains no audio samples")
+    info = AudioInfo(path=path, sr=sr, channels=channels, frames=int(data.shape[0]),
+                     format=fmt, subtype=subtype, sha256=file_sha256(path))
+    y = as_mono(data.T, name=path)
+    check_signal(y, sr, name=path)
+    return y, sr, info
+
+
+def _check_wav_size(path: str, declared: int, channels: int, subtype: str) -> None:
+    """Detect a WAV whose data chunk is shorter than its header says."""
+    width = {"PCM_U8": 1, "PCM_S8": 1, "PCM_16": 2, "PCM_24": 3, "PCM_32": 4}.get(subtype)
+    if width is None:
+        return
+    with open(path, "rb") as f:
+        head = f.read(12)
+        if head[:4] != b"RIFF" or head[8:12] != b"WAVE":
+            return
+        size = os.path.getsize(path)
+        pos = 12
+        while pos + 8 <= size:
+            f.seek(pos)
+            hdr = f.read(8)
+            cid, clen = hdr[:4], int.from_bytes(hdr[4:8], "little")
+            if cid == b"data":
+                avail = size - (pos + 8)
+                if clen != 0xFFFFFFFF and avail < clen:
+                    have = avail // (width * channels)
+                    raise InputError(
+                        f"{path}: truncated audio file (data chunk holds {have} of "
+                        f"{clen // (width * channels)} declared samples)"
+                    )
+                return
+            pos += 8 + clen + (clen & 1)
+
+
+def as_mono(y, *, name: str = "<array>") -> np.ndarray:
+    """1-D float64 samples; a (channels, samples) array is averaged with a warning."""
+    try:
+        y = np.asarray(y, dtype=np.float64)
+    except (TypeError, ValueError):
+        raise InputError(f"{name}: samples are not numbers") from None
+    if y.ndim == 2:
+        if y.shape[0] > 64:
+            raise InputError(
+                f"{name}: 2-D input must be (channels, samples); got shape {y.shape}"
+            )
+        if y.shape[0] > 1:
+            warn(f"{name}: {y.shape[0]} channels mixed down to mono")
+        y = y.mean(axis=0)
+    elif y.ndim != 1:
+        raise InputError(f"{name}: expected 1-D samples, got an array of shape {y.shape}")
+    return np.ascontiguousarray(y)
+
+
+def check_signal(y: np.ndarray, sr: float, *, name: str = "<array>") -> None:
+    """Reject empty or non-finite input; warn about clipping."""
+    if y.size == 0:
+        raise InputError(f"{name}: contains no audio samples")
+    bad = ~np.isfinite(y)
+    if bad.any():
+        first = int(np.argmax(bad))
+        raise InputError(
+            f"{name}: {int(bad.sum())} non-finite samples (NaN or inf), the first at "
+            f"{first / sr:.3f} s"
+        )
+    peak = float(np.max(np.abs(y)))
+    if peak >= 0.99:
+        at_peak = np.abs(y) >= peak * 0.999
+        # clipping shows as runs of samples stuck at the peak
+        runs = np.count_nonzero(at_peak[1:] & at_peak[:-1])
+        if runs >= max(3, 1e-4 * y.size):
+            warn(f"{name}: audio looks clipped ({runs} consecutive samples at full scale); "
+                 "f0 stays usable, harmonic amplitudes are distorted")
+
+
+def resample(y: np.ndarray, sr_in: float, sr_out: float) -> tuple[np.ndarray, float]:
+    """Polyphase resampling from ``sr_in`` to about ``sr_out`` (Kaiser-windowed FIR, scipy).
+
+    Returns the samples and the exact output rate ``sr_in * up / down`` of the
+    rational ratio used (within 0.1 % of ``sr_out``).
+    """
+    if sr_in == sr_out:
+        return y, float(sr_in)
+    ratio = Fraction(sr_out / sr_in).limit_denominator(1000)
+    out = sps.resample_poly(y, ratio.numerator, ratio.denominator)
+    return out, float(sr_in) * ratio.numerator / ratio.denominator

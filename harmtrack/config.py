@@ -1,0 +1,214 @@
+"""Frozen tracker settings, presets and their validation.
+
+A :class:`TrackerConfig` holds every knob of the estimator.  Users rarely build
+one by hand: :func:`make_config` starts from a named preset and applies keyword
+overrides, checking each value against its documented range.  The sample-rate
+dependent checks (frame length against ``fmin``, ``fmax`` against the analysis
+band) happen in :meth:`TrackerConfig.resolve`, once the input's rate is known.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from dataclasses import dataclass, field
+
+from .errors import HarmtrackError
+
+__all__ = ["TrackerConfig", "ResolvedConfig", "PRESETS", "make_config"]
+
+
+@dataclass(frozen=True)
+class TrackerConfig:
+    """Settings of the harmonic-model tracker.
+
+    Parameters
+    ----------
+    preset : str
+        Name of the preset these settings started from (for provenance).
+    fmin_hz, fmax_hz : float
+        Search range of the fundamental, Hz.  ``0 < fmin_hz < fmax_hz``.
+    hop_s : float
+        Frame hop in seconds, 0.001 to 0.1.  Frame ``i`` is centred at ``i * hop_s``.
+    frame_s : float or None
+        Analysis frame length in seconds (0.01 to 1.0).  ``None`` picks
+        ``max(0.03, 2.5 / fmin_hz)``: two and a half periods of the lowest f0.
+    analysis_sr : int
+        Input above this rate is resampled to it before analysis (4000 to 96000 Hz);
+        input at or below it is analysed at its own rate.
+    band_hz : float or None
+        Highest frequency of a harmonic that enters the fit.  ``None`` means 95 %
+        of the analysis Nyquist frequency.
+    max_harmonics : int
+        Largest model order considered, and the number of amplitude columns (1 to 100).
+    grid_cents : float
+        Spacing of the logarithmic f0 search grid in cents (1 to 50).
+    n_candidates : int
+        f0 candidates kept per frame for the smoother (2 to 20).
+    smoothing : float
+        Strength of the smoother's pitch-continuity prior, 0 to 20.  1 is tuned
+        for speech; 0 leaves every frame to its own evidence.
+    glide_oct_s : float
+        Typical speed of f0 movement in octaves per second (0.05 to 20) that the
+        continuity prior treats as cheap; faster changes cost more.
+    voiced_prior : float
+        Prior probability that a frame is voiced, in (0, 1).
+    voiced_run_s : float
+        Mean duration of voiced and of unvoiced stretches assumed by the smoother,
+        seconds (0.005 to 10); it sets the voicing switch cost independent of the hop.
+    prewhiten : bool
+        Flatten the long-term noise spectrum before the fit, for coloured noise.
+    """
+
+    preset: str = "custom"
+    fmin_hz: float = 50.0
+    fmax_hz: float = 800.0
+    hop_s: float = 0.01
+    frame_s: float | None = None
+    analysis_sr: int = 16000
+    band_hz: float | None = None
+    max_harmonics: int = 30
+    grid_cents: float = 10.0
+    n_candidates: int = 6
+    smoothing: float = 1.0
+    glide_oct_s: float = 2.0
+    voiced_prior: float = 0.5
+    voiced_run_s: float = 0.15
+    prewhiten: bool = True
+    extra: dict = field(default_factory=dict, compare=False, hash=False)
+
+    def __post_init__(self) -> None:
+        for name in ("max_harmonics", "n_candidates", "analysis_sr"):
+            _check_int(name, getattr(self, name), 1, 10**6)
+            object.__setattr__(self, name, int(getattr(self, name)))
+        object.__setattr__(self, "prewhiten", bool(self.prewhiten))
+        _check_range("fmin_hz", self.fmin_hz, 1.0, 20000.0)
+        _check_range("fmax_hz", self.fmax_hz, 1.0, 40000.0)
+        if not self.fmin_hz < self.fmax_hz:
+            raise HarmtrackError(
+                f"fmin={self.fmin_hz:g} Hz must be below fmax={self.fmax_hz:g} Hz"
+            )
+        _check_range("hop_s", self.hop_s, 0.001, 0.1)
+        if self.frame_s is not None:
+            _check_range("frame_s", self.frame_s, 0.01, 1.0)
+        _check_range("analysis_sr", self.analysis_sr, 4000, 96000)
+        if self.band_hz is not None:
+            _check_range("band_hz", self.band_hz, 100.0, 48000.0)
+        _check_int("max_harmonics", self.max_harmonics, 1, 100)
+        _check_range("grid_cents", self.grid_cents, 1.0, 50.0)
+        _check_int("n_candidates", self.n_candidates, 2, 20)
+        _check_range("smoothing", self.smoothing, 0.0, 20.0)
+        _check_range("glide_oct_s", self.glide_oct_s, 0.05, 20.0)
+        _check_range("voiced_run_s", self.voiced_run_s, 0.005, 10.0)
+        if not 0.0 < float(self.voiced_prior) < 1.0:
+            raise HarmtrackError(f"voiced_prior={self.voiced_prior!r} must lie strictly between 0 and 1")
+
+    @property
+    def auto_frame_s(self) -> float:
+        """Frame length used: ``frame_s`` or the automatic choice from ``fmin_hz``."""
+        if self.frame_s is not None:
+            return float(self.frame_s)
+        return float(min(1.0, max(0.03, 2.5 / self.fmin_hz)))
+
+    def as_dict(self) -> dict:
+        """Plain dict of the settings (for provenance headers)."""
+        d = dataclasses.asdict(self)
+        d.pop("extra", None)
+        d["frame_s"] = self.auto_frame_s
+        return d
+
+    def resolve(self, sr: float) -> "ResolvedConfig":
+        """Fix the sample-rate dependent quantities for input at ``sr`` Hz.
+
+        Raises
+        ------
+        HarmtrackError
+            When the range cannot be analysed at this rate and frame length.
+        """
+        sr = float(sr)
+        if not (1000.0 <= sr <= 400000.0):
+            raise HarmtrackError(f"sample rate {sr:g} Hz is outside 1 kHz to 400 kHz")
+        asr = float(self.analysis_sr) if sr > self.analysis_sr * 1.001 else sr
+        nyq = asr / 2.0
+        band = 0.95 * nyq if self.band_hz is None else min(float(self.band_hz), 0.95 * nyq)
+        if self.fmax_hz >= band:
+            raise HarmtrackError(
+                f"fmax={self.fmax_hz:g} Hz is not below the analysed band of {band:.0f} Hz "
+                f"at {asr:g} Hz sampling; lower fmax or use audio with a higher sample rate"
+            )
+        frame_s = self.auto_frame_s
+        if frame_s * self.fmin_hz < 1.5:
+            raise HarmtrackError(
+                f"fmin={self.fmin_hz:g} Hz needs frames of at least {1.5 / self.fmin_hz * 1000:.0f} ms; "
+                f"raise fmin or set frame_s >= {1.5 / self.fmin_hz:.3f}"
+            )
+        n = int(round(frame_s * asr))
+        n += n % 2  # even length keeps the frame centre between two samples
+        hop = self.hop_s * asr
+        return ResolvedConfig(cfg=self, sr_in=sr, sr=asr, frame_len=n, hop=hop, band_hz=band)
+
+
+@dataclass(frozen=True)
+class ResolvedConfig:
+    """Settings fixed for one analysis sample rate (see :meth:`TrackerConfig.resolve`)."""
+
+    cfg: TrackerConfig
+    sr_in: float
+    sr: float
+    frame_len: int
+    hop: float
+    band_hz: float
+
+    @property
+    def nfft(self) -> int:
+        """FFT size: at least twice the frame, a power of two."""
+        return 1 << int(math.ceil(math.log2(2 * self.frame_len)))
+
+
+PRESETS: dict[str, dict] = {
+    # Speech: 50-800 Hz, 16 kHz analysis, ~50 ms frames.
+    "voice": dict(fmin_hz=50.0, fmax_hz=800.0, analysis_sr=16000, max_harmonics=30,
+                  smoothing=1.0, glide_oct_s=2.0, voiced_run_s=0.15),
+    # Singing: wider and higher range, vibrato and portamento move faster.
+    "singing": dict(fmin_hz=60.0, fmax_hz=1600.0, analysis_sr=22050, max_harmonics=30,
+                    smoothing=0.7, glide_oct_s=4.0, voiced_run_s=0.4),
+}
+
+
+def make_config(preset: str = "voice", **overrides) -> TrackerConfig:
+    """Settings of a named preset with keyword overrides (``None`` values are ignored).
+
+    Raises
+    ------
+    HarmtrackError
+        Unknown preset or option name, or a value outside its range.
+    """
+    if not isinstance(preset, str) or preset not in PRESETS:
+        raise HarmtrackError(
+            f"unknown preset {preset!r}; choose one of: {', '.join(sorted(PRESETS))}"
+        )
+    names = {f.name for f in dataclasses.fields(TrackerConfig)} - {"preset", "extra"}
+    values = dict(PRESETS[preset])
+    for key, val in overrides.items():
+        if key not in names:
+            raise HarmtrackError(f"unknown option {key!r}; known options: {', '.join(sorted(names))}")
+        if val is not None:
+            values[key] = val
+    return TrackerConfig(preset=preset, **values)
+
+
+def _check_range(name: str, value, lo: float, hi: float) -> None:
+    try:
+        v = float(value)
+    except (TypeError, ValueError):
+        raise HarmtrackError(f"{name}={value!r} is not a number") from None
+    if not (math.isfinite(v) and lo <= v <= hi):
+        raise HarmtrackError(f"{name}={value!r} is outside the allowed range {lo:g} to {hi:g}")
+
+
+def _check_int(name: str, value, lo: int, hi: int) -> None:
+    if isinstance(value, bool) or not isinstance(value, (int,)) and not (
+        isinstance(value, float) and value.is_integer()
+    ):
+        raise HarmtrackError(f"{name}={value!r} must be a whole number from {lo} to {hi}")
+    _check_range(name, value, lo, hi)

@@ -1,0 +1,178 @@
+"""Framing, analysis windows, short-time spectra and noise prewhitening.
+
+Pure functions on arrays.  Frame ``i`` is centred on sample ``round(i * hop)`` of
+the (analysis-rate) signal; samples outside the signal count as zeros.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from scipy import signal as sps
+
+__all__ = [
+    "frame_count",
+    "frame_starts",
+    "frames",
+    "analysis_window",
+    "window_properties",
+    "power_spectra",
+    "noise_floor_psd",
+    "whitening_filter",
+    "prewhiten",
+]
+
+
+def frame_count(n_samples: int, hop: float) -> int:
+    """Number of frames whose centres lie inside a signal of ``n_samples`` samples."""
+    if n_samples <= 0:
+        return 0
+    return int(np.floor((n_samples - 1) / hop + 1e-9)) + 1
+
+
+def frame_starts(indices: np.ndarray, hop: float, frame_len: int) -> np.ndarray:
+    """First sample of each frame in ``indices`` (may be negative near the start)."""
+    centres = np.round(np.asarray(indices) * hop).astype(np.int64)
+    return centres - frame_len // 2
+
+
+def frames(y: np.ndarray, starts: np.ndarray, frame_len: int) -> np.ndarray:
+    """Gather frames ``y[s : s + frame_len]`` for each start, zero outside ``y``.
+
+    Returns
+    -------
+    ndarray, shape (len(starts), frame_len)
+    """
+    n = y.shape[0]
+    idx = starts[:, None] + np.arange(frame_len)[None, :]
+    inside = (idx >= 0) & (idx < n)
+    out = np.zeros(idx.shape, dtype=np.float64)
+    out[inside] = y[idx[inside]]
+    return out
+
+
+def analysis_window(frame_len: int, name: str = "hann") -> np.ndarray:
+    """Periodic ("DFT-even") analysis window of ``frame_len`` samples.
+
+    References
+    ----------
+    F. J. Harris, "On the use of windows for harmonic analysis with the discrete
+    Fourier transform", Proc. IEEE 66(1), 51-83, 1978.
+    """
+    return sps.get_window(name, frame_len, fftbins=True).astype(np.float64)
+
+
+def window_properties(w: np.ndarray, *, oversample: int = 64) -> dict:
+    """Figures of merit of a window, as tabulated for harmonic analysis.
+
+    Returns
+    -------
+    dict
+        ``coherent_gain`` (sum(w)/N), ``enbw_bins`` (equivalent noise bandwidth,
+        N*sum(w**2)/sum(w)**2), ``scalloping_loss_db`` (loss at half a bin),
+        ``bw_3db_bins`` (3 dB main-lobe width) and ``highest_sidelobe_db``.
+
+    References
+    ----------
+    F. J. Harris, "On the use of windows for harmonic analysis with the discrete
+    Fourier transform", Proc. IEEE 66(1), 51-83, 1978 (Table I).
+    """
+    w = np.asarray(w, dtype=np.float64)
+    n = w.size
+    nfft = n * oversample
+    spec = np.abs(np.fft.rfft(w, nfft))
+    spec /= spec[0]
+    db = 20 * np.log10(np.maximum(spec, 1e-300))
+    bins = np.arange(spec.size) / oversample
+    # Main lobe ends at the first local minimum.
+    d = np.diff(spec)
+    first_min = int(np.argmax(d > 0))
+    half_bin = np.abs(np.sum(w * np.exp(-1j * np.pi * np.arange(n) / n))) / np.sum(w)
+    below = np.nonzero(db <= -3.0103)[0][0]
+    # Linear interpolation of the -3 dB crossing.
+    x0, x1 = bins[below - 1], bins[below]
+    y0, y1 = db[below - 1], db[below]
+    x3 = x0 + (-3.0103 - y0) * (x1 - x0) / (y1 - y0)
+    return {
+        "coherent_gain": float(np.sum(w) / n),
+        "enbw_bins": float(n * np.sum(w**2) / np.sum(w) ** 2),
+        "scalloping_loss_db": float(-20 * np.log10(half_bin)),
+        "bw_3db_bins": float(2 * x3),
+        "highest_sidelobe_db": float(np.max(db[first_min:])),
+    }
+
+
+def power_spectra(fr: np.ndarray, window: np.ndarray, nfft: int) -> np.ndarray:
+    """|FFT(window * frame)|^2 of each frame, bins 0 .. nfft/2.
+
+    Returns
+    -------
+    ndarray, shape (n_frames, nfft // 2 + 1)
+    """
+    spec = np.fft.rfft(fr * window[None, :], n=nfft, axis=1)
+    return spec.real**2 + spec.imag**2
+
+
+def noise_floor_psd(
+    y: np.ndarray, sr: float, *, frame_len: int, nfft: int, max_frames: int = 1500,
+    time_quantile: float = 0.2, smooth_hz: float = 400.0,
+) -> np.ndarray:
+    """Smoothed long-term noise floor of ``y``: a low quantile over time and frequency.
+
+    Frames are Hann-windowed, half-overlapped; at most ``max_frames`` evenly spaced
+    frames are used.  The per-bin ``time_quantile`` over frames keeps stationary
+    noise and drops intermittent voicing; a running ``time_quantile`` over
+    ``smooth_hz`` of frequency then removes steady spectral lines, and a moving
+    average of the same width smooths the result.
+
+    Returns
+    -------
+    ndarray, shape (nfft // 2 + 1,)
+        Power per bin, same scaling as :func:`power_spectra` with a Hann window.
+    """
+    hop = frame_len // 2
+    n_avail = max(1, 1 + (y.size - frame_len) // hop)
+    pick = np.unique(np.linspace(0, n_avail - 1, min(n_avail, max_frames)).round().astype(np.int64))
+    fr = frames(y, pick * hop, frame_len)
+    ps = power_spectra(fr, analysis_window(frame_len), nfft)
+    floor = np.quantile(ps, time_quantile, axis=0)
+    width = max(3, int(round(smooth_hz / (sr / nfft))) | 1)
+    from scipy.ndimage import percentile_filter, uniform_filter1d
+
+    floor = percentile_filter(floor, 100 * time_quantile, size=width, mode="nearest")
+    floor = uniform_filter1d(floor, width, mode="nearest")
+    return floor
+
+
+def whitening_filter(floor: np.ndarray, *, n_taps: int = 129, max_gain_db: float = 30.0) -> np.ndarray:
+    """Zero-phase FIR whose magnitude response is ``1 / sqrt(floor)``, normalised.
+
+    The gain range is limited to ``max_gain_db`` so that empty bands (for example
+    below a telephone channel's cut-off) are not boosted without bound.  The
+    response is normalised to unit mean power gain, so white noise passes
+    unchanged in level.
+
+    Returns
+    -------
+    ndarray, shape (n_taps,)
+        Odd-length symmetric impulse response (linear phase, delay ``n_taps // 2``).
+    """
+    floor = np.asarray(floor, dtype=np.float64)
+    ref = np.max(floor)
+    if not np.isfinite(ref) or ref <= 0:
+        h = np.zeros(n_taps)
+        h[n_taps // 2] = 1.0
+        return h
+    floor = np.maximum(floor, ref * 10 ** (-max_gain_db / 10))
+    mag = 1.0 / np.sqrt(floor)
+    mag /= np.sqrt(np.mean(mag**2))
+    freqs = np.linspace(0.0, 1.0, floor.size)
+    return sps.firwin2(n_taps, freqs, mag, window="hann")
+
+
+def prewhiten(y: np.ndarray, h: np.ndarray) -> np.ndarray:
+    """Filter ``y`` with the zero-phase FIR ``h`` (output aligned with the input)."""
+    if h.size == 1:
+        return y * h[0]
+    out = sps.oaconvolve(y, h, mode="full")
+    d = h.size // 2
+    return out[d : d + y.size]

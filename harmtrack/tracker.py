@@ -1,0 +1,242 @@
+"""The tracking pipeline: frames -> spectra -> candidates -> Viterbi -> NLS refinement.
+
+Each stage is a pure function of arrays plus the resolved settings; this module
+only wires them together.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import math
+from functools import lru_cache
+
+import numpy as np
+
+from . import nls, salience, smoothing, spectral
+from .audio import as_mono, check_signal, resample
+from .config import ResolvedConfig, TrackerConfig
+from .errors import InputError
+from .track import Track
+
+__all__ = ["track_signal", "Analyzer", "estimate_frame", "EVIDENCE_OFFSET"]
+
+#: Evidence (nats) that a frame's best candidate must exceed before voicing is
+#: favoured: the typical maximum of the evidence over the f0 grid in frames of
+#: white noise alone (measured on the default grid; see tests/test_voicing.py).
+EVIDENCE_OFFSET = 12.0
+
+#: Residual floor of the approximate fit, relative to the frame energy (-40 dB):
+#: the model is never trusted to explain more than that.
+RESIDUAL_FLOOR = 1e-4
+
+#: Frames processed per block (bounds memory for long inputs).
+BLOCK_FRAMES = 2048
+
+
+@dataclasses.dataclass(frozen=True)
+class Analyzer:
+    """Precomputed tables for one resolved configuration."""
+
+    rc: ResolvedConfig
+    window: np.ndarray
+    grid_hz: np.ndarray
+    log2_grid: np.ndarray
+    idx: np.ndarray
+    frac: np.ndarray
+    lmax: np.ndarray
+    norm: float
+    n_eff: float
+
+    @classmethod
+    def build(cls, rc: ResolvedConfig) -> "Analyzer":
+        return _analyzer_cached(rc)
+
+    def candidates(self, fr: np.ndarray):
+        """Candidates of a block of frames (see :func:`salience.pick_candidates`)."""
+        w = self.window
+        fr = fr - (fr @ w / w.sum())[:, None]
+        P = spectral.power_spectra(fr, w, self.rc.nfft)
+        R = (fr * fr) @ w
+        top = int(np.ceil(self.rc.band_hz / (self.rc.sr / self.rc.nfft)))
+        mag_ref = np.sqrt(np.mean(P[:, 1:top], axis=1)) + 1e-300
+        pen_h = math.log(self.n_eff)
+        return salience.pick_candidates(
+            P, R, mag_ref, self.idx, self.frac, self.lmax, self.log2_grid, self.norm,
+            self.n_eff, pen_h, 1.5 * pen_h, RESIDUAL_FLOOR, self.rc.cfg.n_candidates,
+        )
+
+
+@lru_cache(maxsize=16)
+def _analyzer_cached(rc: ResolvedConfig) -> Analyzer:
+    cfg = rc.cfg
+    w = spectral.analysis_window(rc.frame_len, "hann")
+    grid = salience.log_grid(cfg.fmin_hz, cfg.fmax_hz, cfg.grid_cents)
+    idx, frac, lmax = salience.harmonic_tables(
+        grid, df=rc.sr / rc.nfft, band_hz=rc.band_hz, max_harmonics=cfg.max_harmonics
+    )
+    return Analyzer(rc=rc, window=w, grid_hz=grid, log2_grid=np.log2(grid), idx=idx, frac=frac,
+                    lmax=lmax, norm=2.0 / w.sum(), n_eff=w.sum() ** 2 / np.sum(w**2))
+
+
+def _emissions(cand_ev: np.ndarray, rc: ResolvedConfig) -> tuple[np.ndarray, np.ndarray]:
+    """Voiced and unvoiced emission log-potentials from the candidates' evidence."""
+    cfg = rc.cfg
+    weight = min(1.0, cfg.hop_s / cfg.auto_frame_s)
+    prior = math.log(cfg.voiced_prior / (1.0 - cfg.voiced_prior))
+    ev = weight * (cand_ev - EVIDENCE_OFFSET) + prior
+    unv = np.zeros(cand_ev.shape[0])
+    return ev, unv
+
+
+def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> Track:
+    """Track f0, voicing and harmonic amplitudes of samples ``y`` at ``sr`` Hz.
+
+    See :func:`harmtrack.track` for the public interface.
+    """
+    y = as_mono(y, name=name)
+    try:
+        sr = float(sr)
+    except (TypeError, ValueError):
+        raise InputError(f"{name}: sample rate {sr!r} is not a number") from None
+    rc = cfg.resolve(sr)
+    check_signal(y, sr, name=name)
+    n_frames = spectral.frame_count(y.size, cfg.hop_s * sr)
+    ya = y
+    if rc.sr != sr:
+        ya, asr = resample(y, sr, rc.sr)
+        if asr != rc.sr:
+            rc = dataclasses.replace(rc, sr=asr, hop=cfg.hop_s * asr)
+    if ya.size < rc.frame_len:
+        raise InputError(
+            f"{name}: audio of {y.size / sr * 1000:.1f} ms is shorter than one analysis frame "
+            f"({rc.frame_len / rc.sr * 1000:.1f} ms); use a longer recording or a smaller frame_s"
+        )
+    yw = ya
+    if cfg.prewhiten:
+        floor = spectral.noise_floor_psd(ya, rc.sr, frame_len=rc.frame_len, nfft=rc.nfft)
+        yw = spectral.prewhiten(ya, spectral.whitening_filter(floor))
+    an = Analyzer.build(rc)
+    K = cfg.n_candidates
+    cand_lf = np.empty((n_frames, K))
+    cand_ev = np.empty((n_frames, K))
+    for b0 in range(0, n_frames, BLOCK_FRAMES):
+        nb = min(BLOCK_FRAMES, n_frames - b0)
+        starts = spectral.frame_starts(np.arange(b0, b0 + nb), rc.hop, rc.frame_len)
+        lf, ev, _, _ = an.candidates(spectral.frames(yw, starts, rc.frame_len))
+        cand_lf[b0:b0 + nb] = lf
+        cand_ev[b0:b0 + nb] = ev
+    em_v, em_u = _emissions(cand_ev, rc)
+    a, log_sw, log_stay = smoothing.transition_params(
+        hop_s=cfg.hop_s, smoothing=cfg.smoothing, glide_oct_s=cfg.glide_oct_s,
+        voiced_run_s=cfg.voiced_run_s,
+    )
+    path = smoothing.viterbi(cand_lf, em_v, em_u, a, log_sw, log_stay)
+    prob = smoothing.voicing_posterior(cand_lf, em_v, em_u, a, log_sw, log_stay)
+    voiced = path < K
+    f0_init = np.full(n_frames, np.nan)
+    rows = np.nonzero(voiced)[0]
+    f0_init[rows] = 2.0 ** cand_lf[rows, path[rows]]
+    f0, amps, order, hnr = refine_frames(yw, ya, rc, f0_init)
+    times = np.arange(n_frames) * cfg.hop_s
+    return Track(
+        times=times, f0_hz=f0, voiced=voiced, voicing_prob=np.clip(prob, 0.0, 1.0),
+        harmonic_amplitudes=amps, model_order=order, hnr_db=hnr, sr=sr,
+        frame_s=rc.frame_len / rc.sr, settings=cfg.as_dict(),
+    )
+
+
+def refine_frames(yw: np.ndarray, ya: np.ndarray, rc: ResolvedConfig, f0_init: np.ndarray):
+    """NLS refinement and amplitudes at the frames where ``f0_init`` is finite.
+
+    Returns
+    -------
+    f0 : (T,) refined f0 in Hz (NaN where ``f0_init`` is NaN)
+    amps : (T, H) harmonic amplitudes (see :class:`Track`)
+    order : (T,) selected model order
+    hnr : (T,) harmonics-to-noise ratio, dB
+    """
+    cfg = rc.cfg
+    T = f0_init.shape[0]
+    H = cfg.max_harmonics
+    f0 = np.full(T, np.nan)
+    amps = np.full((T, H), np.nan)
+    order = np.zeros(T, dtype=np.int64)
+    hnr = np.full(T, np.nan)
+    rows = np.nonzero(np.isfinite(f0_init))[0]
+    if rows.size == 0:
+        return f0, amps, order, hnr
+    _refine_rows(yw, ya, rows, f0_init, rc.hop, rc.frame_len, rc.sr, rc.band_hz, H,
+                 f0, amps, order, hnr)
+    return f0, amps, order, hnr
+
+
+def _refine_rows(yw, ya, rows, f0_init, hop, frame_len, sr, band_hz, H, f0, amps, order, hnr):
+    pen_h = math.log(frame_len)
+    pen_f = 1.5 * pen_h
+    for b0 in range(0, rows.size, BLOCK_FRAMES):
+        r = rows[b0:b0 + BLOCK_FRAMES]
+        starts = spectral.frame_starts(r, hop, frame_len)
+        fw = spectral.frames(yw, starts, frame_len)
+        fa = fw if ya is yw else spectral.frames(ya, starts, frame_len)
+        _refine_block(fw, fa, f0_init[r], sr, band_hz, H, pen_h, pen_f, r, f0, amps, order, hnr)
+
+
+def _refine_block(fw, fa, f0_start, sr, band_hz, H, pen_h, pen_f, r, f0, amps, order, hnr):
+    out = np.zeros(H)
+    for i in range(fw.shape[0]):
+        f = f0_start[i]
+        lmax = int(min(H, band_hz // f))
+        lmax = max(lmax, 1)
+        w, L, h = nls.analyse_frame(fw[i], fa[i], 2.0 * np.pi * f / sr, lmax, pen_h, pen_f, out)
+        t = r[i]
+        f0[t] = w * sr / (2.0 * np.pi)
+        row = np.zeros(H)
+        row[:lmax] = out[:lmax]
+        # harmonics above the analysed band are not measured
+        top = int(min(H, band_hz // f0[t]))
+        row[top:] = np.nan
+        amps[t] = row
+        order[t] = L
+        hnr[t] = h
+
+
+def estimate_frame(x, sr: float, *, fmin_hz: float, fmax_hz: float, max_harmonics: int = 30,
+                   grid_cents: float = 10.0):
+    """f0, model order and harmonic amplitudes of one stationary frame.
+
+    The frame estimator of the tracker without the smoother: harmonic-summation
+    candidates on the grid, the strongest refined by exact NLS with MAP order
+    selection.  Useful on its own for stationary segments and for checking the
+    estimator against the Cramér-Rao bound.
+
+    Parameters
+    ----------
+    x : ndarray, shape (N,)
+        The frame (no window is applied for the NLS fit).
+    sr : float
+        Sample rate, Hz.
+    fmin_hz, fmax_hz : float
+        Search range.
+
+    Returns
+    -------
+    f0_hz : float
+        NaN when no harmonic model beats noise alone.
+    order : int
+    amplitudes : ndarray, shape (max_harmonics,)
+    """
+    x = np.ascontiguousarray(x, dtype=np.float64)
+    n = x.size
+    cfg = TrackerConfig(fmin_hz=fmin_hz, fmax_hz=fmax_hz, frame_s=n / sr, analysis_sr=int(min(96000, max(4000, sr))),
+                        max_harmonics=max_harmonics, grid_cents=grid_cents, prewhiten=False)
+    rc = dataclasses.replace(cfg.resolve(sr), frame_len=n, sr=float(sr))
+    an = Analyzer.build(rc)
+    lf, ev, _, best = an.candidates(x[None, :])
+    amps = np.zeros(max_harmonics)
+    if not np.isfinite(best[0]):
+        return float("nan"), 0, amps
+    f = 2.0 ** lf[0, 0]
+    lmax = max(1, int(min(max_harmonics, rc.band_hz // f)))
+    pen_h = math.log(n)
+    w, L, _ = nls.analyse_frame(x, x, 2.0 * np.pi * f / sr, lmax, pen_h, 1.5 * pen_h, amps)
+    return w * sr / (2.0 * np.pi), int(L), amps
