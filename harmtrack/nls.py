@@ -45,19 +45,17 @@ import numpy as np
 from numba import njit
 
 __all__ = ["projections", "order_energies", "refine_f0", "fit_amplitudes", "select_order",
-           "analyse_frame", "crlb_f0"]
+           "analyse_frame", "analyse_frames", "crlb_f0"]
 
 
-@njit(cache=True)
+@njit(cache=True, fastmath=True)
 def projections(x, omega, L, c, s):
     """``c[k] = sum x cos(k w t)``, ``s[k] = sum x sin(k w t)`` for ``k = 0..L``.
 
     ``t`` is centred on the frame.  Goertzel recursions for all harmonics run
-    interleaved in one pass over the samples.
+    interleaved in one pass over the samples, two samples per step.
     """
     N = x.shape[0]
-    m = 0.5 * (N - 1)
-    # k = 0: the mean term
     tot = 0.0
     for n in range(N):
         tot += x[n]
@@ -66,40 +64,50 @@ def projections(x, omega, L, c, s):
     if L == 0:
         return
     coef = np.empty(L)
-    s1 = np.zeros(L)
-    s2 = np.zeros(L)
+    a = np.zeros(L)  # s[n-1]
+    b = np.zeros(L)  # s[n-2]
     for k in range(L):
         coef[k] = 2.0 * math.cos((k + 1) * omega)
-    for n in range(N):
-        xn = x[n]
+    n0 = N % 2
+    if n0 == 1:
+        x0 = x[0]
         for k in range(L):
-            s0 = xn + coef[k] * s1[k] - s2[k]
-            s2[k] = s1[k]
-            s1[k] = s0
+            a[k] = x0
+    for n in range(n0, N, 2):
+        x0 = x[n]
+        x1 = x[n + 1]
+        for k in range(L):
+            t0 = x0 + coef[k] * a[k] - b[k]
+            t1 = x1 + coef[k] * t0 - a[k]
+            b[k] = t0
+            a[k] = t1
+    # X(th) = sum x[n] e^{-i th n} = e^{-i th (N-1)} (a - e^{-i th} b); the centred
+    # sum is e^{i th (N-1)/2} X(th) = e^{-i th (N-1)/2} (a - e^{-i th} b).
     for k in range(L):
         th = (k + 1) * omega
-        # X(th) = sum x[n] e^{-i th n} = e^{-i th (N-1)} (s1 - e^{-i th} s2)
-        re = s1[k] - math.cos(th) * s2[k]
-        im = math.sin(th) * s2[k]
-        # centred: sum x e^{-i th (n - m)} = e^{i th m} X(th)
-        ph = -th * (N - 1) + th * m
+        re = a[k] - math.cos(th) * b[k]
+        im = math.sin(th) * b[k]
+        ph = -0.5 * th * (N - 1)
         cp = math.cos(ph)
         sp = math.sin(ph)
-        xr = re * cp - im * sp
-        xi = re * sp + im * cp
-        c[k + 1] = xr
-        s[k + 1] = -xi
+        c[k + 1] = re * cp - im * sp
+        s[k + 1] = -(re * sp + im * cp)
 
 
 @njit(cache=True)
-def _dirichlet(theta, N):
-    h = 0.5 * theta
-    sh = math.sin(h)
-    if abs(sh) < 1e-12:
-        # limit: +-N depending on the branch (theta near a multiple of 2 pi)
-        k = round(theta / (2.0 * math.pi))
-        return N * (1.0 if (k * (N - 1)) % 2 == 0 else -1.0)
-    return math.sin(N * h) / sh
+def _dirichlet_table(omega, N, J):
+    """``D[j] = sum_t cos(j w t)`` over the centred frame, ``j = 0..J``."""
+    D = np.empty(J + 1)
+    D[0] = N
+    for j in range(1, J + 1):
+        h = 0.5 * j * omega
+        sh = math.sin(h)
+        if abs(sh) < 1e-12:
+            m = round(h / math.pi)
+            D[j] = N * (1.0 if (m * (N - 1)) % 2 == 0 else -1.0)
+        else:
+            D[j] = math.sin(N * h) / sh
+    return D
 
 
 @njit(cache=True)
@@ -108,6 +116,7 @@ def _gram(omega, N, L, C, S, mask):
 
     Returns the index lists of the kept cosine and sine columns and their counts.
     """
+    D = _dirichlet_table(omega, N, 2 * L)
     ic = np.empty(L + 1, dtype=np.int64)
     isn = np.empty(L, dtype=np.int64)
     nc = 0
@@ -124,12 +133,12 @@ def _gram(omega, N, L, C, S, mask):
         for b in range(a + 1):
             k = ic[a]
             l = ic[b]
-            C[a, b] = 0.5 * (_dirichlet((k - l) * omega, N) + _dirichlet((k + l) * omega, N))
+            C[a, b] = 0.5 * (D[k - l] + D[k + l])
     for a in range(ns):
         for b in range(a + 1):
             k = isn[a]
             l = isn[b]
-            S[a, b] = 0.5 * (_dirichlet((k - l) * omega, N) - _dirichlet((k + l) * omega, N))
+            S[a, b] = 0.5 * (D[k - l] - D[k + l])
     return ic, nc, isn, ns
 
 
@@ -319,42 +328,56 @@ def select_order(energies, usable, R, N, pen_h, pen_f):
 
 
 @njit(cache=True)
-def analyse_frame(x, xa, omega0, lmax, pen_h, pen_f, out_amps):
+def analyse_frame(x, xa, omega0, order0, lmax, pen_h, pen_f, out_amps):
     """Refine f0, choose the order and fit amplitudes for one voiced frame.
 
-    ``x`` is the frame the f0 is estimated on (possibly prewhitened); ``xa`` the
-    frame amplitudes are measured on.  ``out_amps[k-1]`` receives the amplitude of
-    harmonic ``k`` (0 for harmonics the per-harmonic test drops).
+    Parameters
+    ----------
+    x : ndarray, shape (N,)
+        Frame the f0 is estimated on (possibly prewhitened).
+    xa : ndarray, shape (N,)
+        Frame the amplitudes are measured on.
+    omega0 : float
+        Starting f0, radians per sample.
+    order0 : int
+        Model order used while refining f0 (from the search stage).
+    lmax : int
+        Highest order considered by the final order selection.
+    pen_h, pen_f : float
+        MAP penalties per harmonic and for the frequency (nats).
+    out_amps : ndarray, shape (H,)
+        Receives the amplitude of harmonic ``k`` at ``k - 1`` (0 for harmonics
+        above the selected order or dropped by the per-harmonic test).
 
     Returns
     -------
     omega : float
-        Refined f0 in radians per sample.
+        Refined f0, radians per sample.
     order : int
         Selected model order.
     hnr_db : float
         Harmonics-to-noise ratio of ``xa`` under the fitted model, dB.
     """
     N = x.shape[0]
-    L = lmax
-    en = np.zeros(L + 1)
-    usable = order_energies(x, omega0, L, en)
+    L0 = min(max(order0, 1), lmax)
+    # first step: about half the width of the order-L0 energy peak
+    w = refine_f0(x, omega0, L0, math.pi / (N * omega0 * L0))
+    en = np.zeros(lmax + 1)
+    usable = order_energies(x, w, lmax, en)
     R = 0.0
     for n in range(N):
         R += x[n] * x[n]
     lsel, _ = select_order(en, usable, R, N, pen_h, pen_f)
     if lsel == 0:
-        lsel = 1
-    # first step: about half the width of the order-L energy peak
-    w = refine_f0(x, omega0, lsel, math.pi / (N * omega0 * lsel))
-    usable = order_energies(x, w, L, en)
-    lsel2, _ = select_order(en, usable, R, N, pen_h, pen_f)
-    if lsel2 >= 1:
-        lsel = lsel2
+        lsel = L0
     # amplitudes on xa, dropping harmonics whose own evidence is below their penalty
     Ra = 0.0
     for n in range(N):
         Ra += xa[n] * xa[n]
+    if not (Ra > 0.0):
+        for k in range(out_amps.shape[0]):
+            out_amps[k] = 0.0
+        return w, lsel, np.nan
     keep = np.ones(lsel + 1, dtype=np.bool_)
     amps, ea = fit_amplitudes(xa, w, lsel, keep)
     resid = Ra - ea
@@ -380,6 +403,37 @@ def analyse_frame(x, xa, omega0, lmax, pen_h, pen_f, out_amps):
         harm = 1e-300
     hnr = 10.0 * math.log10(harm / resid)
     return w, lsel, hnr
+
+
+@njit(cache=True)
+def analyse_frames(fw, fa, omega0, order0, band_w, H, pen_h, pen_f):
+    """:func:`analyse_frame` over a block of frames.
+
+    ``band_w`` is the analysed band edge in radians per sample: harmonics above it
+    are neither fitted nor reported (their amplitude is NaN).
+
+    Returns
+    -------
+    omega (F,), order (F,), hnr_db (F,), amplitudes (F, H)
+    """
+    F = fw.shape[0]
+    w_out = np.empty(F)
+    l_out = np.empty(F, dtype=np.int64)
+    h_out = np.empty(F)
+    a_out = np.full((F, H), np.nan)
+    amps = np.zeros(H)
+    for i in range(F):
+        lmax = min(H, int(band_w / omega0[i]))
+        if lmax < 1:
+            lmax = 1
+        w, L, h = analyse_frame(fw[i], fa[i], omega0[i], order0[i], lmax, pen_h, pen_f, amps)
+        w_out[i] = w
+        l_out[i] = L
+        h_out[i] = h
+        top = min(H, int(band_w / w))
+        for k in range(top):
+            a_out[i, k] = amps[k] if k < lmax else 0.0
+    return w_out, l_out, h_out, a_out
 
 
 def crlb_f0(amplitudes, n_samples: int, noise_var: float, sr: float) -> float:

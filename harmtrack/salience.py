@@ -48,19 +48,24 @@ def log_grid(fmin_hz: float, fmax_hz: float, cents: float) -> np.ndarray:
 def harmonic_tables(grid_hz: np.ndarray, *, df: float, band_hz: float, max_harmonics: int):
     """Bin positions of the harmonics of every grid frequency.
 
+    The power at harmonic ``k`` is read from the spectrum by three-point
+    (quadratic Lagrange) interpolation around the nearest bin, which keeps the
+    error at a spectral peak far below the linear interpolation's.
+
     Returns
     -------
     idx : ndarray of int64, shape (G, H)
-        Lower FFT bin of harmonic ``k`` of grid point ``g`` (column ``k - 1``).
-    frac : ndarray, shape (G, H)
-        Linear interpolation weight of the upper bin.
+        Nearest FFT bin of harmonic ``k`` of grid point ``g`` (column ``k - 1``).
+    frac : ndarray, shape (G, H, 3)
+        Interpolation weights of bins ``idx - 1``, ``idx``, ``idx + 1``.
     lmax : ndarray of int64, shape (G,)
         Highest harmonic below ``band_hz`` (at most ``max_harmonics``).
     """
     k = np.arange(1, max_harmonics + 1)
     pos = grid_hz[:, None] * k[None, :] / df
-    idx = np.floor(pos).astype(np.int64)
-    frac = pos - idx
+    idx = np.maximum(np.round(pos).astype(np.int64), 1)
+    d = pos - idx
+    frac = np.stack([0.5 * d * (d - 1.0), 1.0 - d * d, 0.5 * d * (d + 1.0)], axis=-1)
     lmax = np.minimum(max_harmonics, np.floor(band_hz / grid_hz)).astype(np.int64)
     lmax = np.maximum(lmax, 1)
     return idx, frac, lmax
@@ -83,8 +88,9 @@ def _frame_evidence(p, r_tot, mag_ref, idx, frac, lmax, norm, n_eff, pen_h, pen_
         best_l = 1
         for k in range(lmax[g]):
             i = idx[g, k]
-            a = frac[g, k]
-            pk = p[i] * (1.0 - a) + p[i + 1] * a
+            pk = p[i - 1] * frac[g, k, 0] + p[i] * frac[g, k, 1] + p[i + 1] * frac[g, k, 2]
+            if pk < 0.0:
+                pk = 0.0
             e += pk
             s += math.sqrt(pk)
             mult *= q

@@ -7,6 +7,8 @@ the (analysis-rate) signal; samples outside the signal count as zeros.
 from __future__ import annotations
 
 import numpy as np
+import scipy.fft
+from numba import njit
 from scipy import signal as sps
 
 __all__ = [
@@ -16,6 +18,7 @@ __all__ = [
     "analysis_window",
     "window_properties",
     "power_spectra",
+    "windowed_spectra",
     "noise_floor_psd",
     "whitening_filter",
     "prewhiten",
@@ -42,12 +45,80 @@ def frames(y: np.ndarray, starts: np.ndarray, frame_len: int) -> np.ndarray:
     -------
     ndarray, shape (len(starts), frame_len)
     """
-    n = y.shape[0]
-    idx = starts[:, None] + np.arange(frame_len)[None, :]
-    inside = (idx >= 0) & (idx < n)
-    out = np.zeros(idx.shape, dtype=np.float64)
-    out[inside] = y[idx[inside]]
+    out = np.empty((starts.shape[0], frame_len))
+    _gather(np.ascontiguousarray(y, dtype=np.float64), np.asarray(starts, dtype=np.int64), out)
     return out
+
+
+@njit(cache=True)
+def _gather(y, starts, out):
+    n = y.shape[0]
+    F, L = out.shape
+    for i in range(F):
+        s = starts[i]
+        for j in range(L):
+            k = s + j
+            out[i, j] = y[k] if 0 <= k < n else 0.0
+
+
+@njit(cache=True)
+def _window_frames(y, starts, window, buf, energy):
+    """Mean-removed, windowed frames into the zero-padded ``buf``; weighted energies."""
+    n = y.shape[0]
+    F = starts.shape[0]
+    L = window.shape[0]
+    wsum = 0.0
+    for j in range(L):
+        wsum += window[j]
+    for i in range(F):
+        s = starts[i]
+        m = 0.0
+        for j in range(L):
+            k = s + j
+            v = y[k] if 0 <= k < n else 0.0
+            buf[i, j] = v
+            m += window[j] * v
+        m /= wsum
+        e = 0.0
+        for j in range(L):
+            v = buf[i, j] - m
+            e += window[j] * v * v
+            buf[i, j] = window[j] * v
+        for j in range(L, buf.shape[1]):
+            buf[i, j] = 0.0
+        energy[i] = e
+
+
+@njit(cache=True)
+def _abs2(spec, out):
+    F, B = spec.shape
+    for i in range(F):
+        for j in range(B):
+            z = spec[i, j]
+            out[i, j] = z.real * z.real + z.imag * z.imag
+
+
+def windowed_spectra(y: np.ndarray, starts: np.ndarray, window: np.ndarray, nfft: int):
+    """Power spectra and weighted energies of mean-removed frames of ``y``.
+
+    Each frame ``x = y[s : s + len(window)]`` (zeros outside ``y``) has its
+    window-weighted mean removed; the function returns ``|FFT(window * x)|^2``
+    over bins ``0 .. nfft/2`` and the weighted energy ``sum(window * x**2)``.
+
+    Returns
+    -------
+    power : ndarray, shape (F, nfft // 2 + 1)
+    energy : ndarray, shape (F,)
+    """
+    F = starts.shape[0]
+    buf = np.empty((F, nfft))
+    energy = np.empty(F)
+    _window_frames(np.ascontiguousarray(y, dtype=np.float64), np.asarray(starts, dtype=np.int64),
+                   window, buf, energy)
+    spec = scipy.fft.rfft(buf, axis=1, overwrite_x=True)
+    power = np.empty(spec.shape)
+    _abs2(spec, power)
+    return power, energy
 
 
 def analysis_window(frame_len: int, name: str = "hann") -> np.ndarray:

@@ -214,7 +214,7 @@ def f0_contour(duration_s, *, hop_s=0.01, kind="phrase", f0_hz=120.0, seed=0):
     kind : {"phrase", "glide", "vibrato", "steady"}, keyword-only
         ``"phrase"``: speech-like; voiced segments of 0.2-0.8 s separated by
         unvoiced gaps of 0.05-0.25 s (plus leading and trailing unvoiced
-        stretches), with a slow declination of 3 semitones over the phrase,
+        stretches; a single shorter segment when ``duration_s`` is too short), with a slow declination of 3 semitones over the phrase,
         rises and falls of 2-5 semitones on each segment, a slow wander and a
         phrase-final fall of 4-7 semitones.
         ``"glide"``: voiced throughout, gliding smoothly up an octave and back
@@ -449,7 +449,7 @@ def voice(times, f0, sr, *, seed=0, harmonics="all", formants="neutral",
     if np.any(~np.isfinite(fv)) or np.any(fv < 20.0) or np.any(fv >= f0_max):
         bad = fv[~np.isfinite(fv) | (fv < 20.0) | (fv >= f0_max)][0]
         raise HarmtrackError(
-            f"voiced f0 values must lie in [20, {f0_max:g}) Hz for sr={sr}, got {bad!r}; "
+            f"voiced f0 values must lie in [20, {f0_max:g}) Hz for sr={sr}, got {float(bad):g}; "
             "use NaN for unvoiced frames")
     seed = _seed(seed)
     _choice("unvoiced", unvoiced, _UNVOICED_KINDS)

@@ -23,14 +23,14 @@ __all__ = ["track_signal", "Analyzer", "estimate_frame", "EVIDENCE_OFFSET"]
 #: Evidence (nats) that a frame's best candidate must exceed before voicing is
 #: favoured: the typical maximum of the evidence over the f0 grid in frames of
 #: white noise alone (measured on the default grid; see tests/test_voicing.py).
-EVIDENCE_OFFSET = 12.0
+EVIDENCE_OFFSET = 0.0
 
-#: Residual floor of the approximate fit, relative to the frame energy (-40 dB):
+#: Residual floor of the approximate fit, relative to the frame energy (-20 dB):
 #: the model is never trusted to explain more than that.
-RESIDUAL_FLOOR = 1e-4
+RESIDUAL_FLOOR = 10 ** -2.0
 
-#: Frames processed per block (bounds memory for long inputs).
-BLOCK_FRAMES = 2048
+#: Frames processed per block: small enough that the padded FFT buffers stay in cache.
+BLOCK_FRAMES = 128
 
 
 @dataclasses.dataclass(frozen=True)
@@ -51,12 +51,12 @@ class Analyzer:
     def build(cls, rc: ResolvedConfig) -> "Analyzer":
         return _analyzer_cached(rc)
 
-    def candidates(self, fr: np.ndarray):
-        """Candidates of a block of frames (see :func:`salience.pick_candidates`)."""
-        w = self.window
-        fr = fr - (fr @ w / w.sum())[:, None]
-        P = spectral.power_spectra(fr, w, self.rc.nfft)
-        R = (fr * fr) @ w
+    def candidates(self, y: np.ndarray, starts: np.ndarray):
+        """Candidates of the frames of ``y`` starting at ``starts``.
+
+        See :func:`salience.pick_candidates` for the returned arrays.
+        """
+        P, R = spectral.windowed_spectra(y, starts, self.window, self.rc.nfft)
         top = int(np.ceil(self.rc.band_hz / (self.rc.sr / self.rc.nfft)))
         mag_ref = np.sqrt(np.mean(P[:, 1:top], axis=1)) + 1e-300
         pen_h = math.log(self.n_eff)
@@ -119,12 +119,14 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
     K = cfg.n_candidates
     cand_lf = np.empty((n_frames, K))
     cand_ev = np.empty((n_frames, K))
+    cand_order = np.empty((n_frames, K), dtype=np.int64)
     for b0 in range(0, n_frames, BLOCK_FRAMES):
         nb = min(BLOCK_FRAMES, n_frames - b0)
         starts = spectral.frame_starts(np.arange(b0, b0 + nb), rc.hop, rc.frame_len)
-        lf, ev, _, _ = an.candidates(spectral.frames(yw, starts, rc.frame_len))
+        lf, ev, order, _ = an.candidates(yw, starts)
         cand_lf[b0:b0 + nb] = lf
         cand_ev[b0:b0 + nb] = ev
+        cand_order[b0:b0 + nb] = order
     em_v, em_u = _emissions(cand_ev, rc)
     a, log_sw, log_stay = smoothing.transition_params(
         hop_s=cfg.hop_s, smoothing=cfg.smoothing, glide_oct_s=cfg.glide_oct_s,
@@ -134,9 +136,11 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
     prob = smoothing.voicing_posterior(cand_lf, em_v, em_u, a, log_sw, log_stay)
     voiced = path < K
     f0_init = np.full(n_frames, np.nan)
+    order_init = np.zeros(n_frames, dtype=np.int64)
     rows = np.nonzero(voiced)[0]
     f0_init[rows] = 2.0 ** cand_lf[rows, path[rows]]
-    f0, amps, order, hnr = refine_frames(yw, ya, rc, f0_init)
+    order_init[rows] = cand_order[rows, path[rows]]
+    f0, amps, order, hnr = refine_frames(yw, ya, rc, f0_init, order_init)
     times = np.arange(n_frames) * cfg.hop_s
     return Track(
         times=times, f0_hz=f0, voiced=voiced, voicing_prob=np.clip(prob, 0.0, 1.0),
@@ -145,8 +149,11 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
     )
 
 
-def refine_frames(yw: np.ndarray, ya: np.ndarray, rc: ResolvedConfig, f0_init: np.ndarray):
+def refine_frames(yw: np.ndarray, ya: np.ndarray, rc: ResolvedConfig, f0_init: np.ndarray,
+                  order_init: np.ndarray):
     """NLS refinement and amplitudes at the frames where ``f0_init`` is finite.
+
+    ``order_init`` is the model order the search stage found for each start.
 
     Returns
     -------
@@ -165,39 +172,19 @@ def refine_frames(yw: np.ndarray, ya: np.ndarray, rc: ResolvedConfig, f0_init: n
     rows = np.nonzero(np.isfinite(f0_init))[0]
     if rows.size == 0:
         return f0, amps, order, hnr
-    _refine_rows(yw, ya, rows, f0_init, rc.hop, rc.frame_len, rc.sr, rc.band_hz, H,
-                 f0, amps, order, hnr)
-    return f0, amps, order, hnr
-
-
-def _refine_rows(yw, ya, rows, f0_init, hop, frame_len, sr, band_hz, H, f0, amps, order, hnr):
-    pen_h = math.log(frame_len)
-    pen_f = 1.5 * pen_h
+    pen_h = math.log(rc.frame_len)
     for b0 in range(0, rows.size, BLOCK_FRAMES):
         r = rows[b0:b0 + BLOCK_FRAMES]
-        starts = spectral.frame_starts(r, hop, frame_len)
-        fw = spectral.frames(yw, starts, frame_len)
-        fa = fw if ya is yw else spectral.frames(ya, starts, frame_len)
-        _refine_block(fw, fa, f0_init[r], sr, band_hz, H, pen_h, pen_f, r, f0, amps, order, hnr)
-
-
-def _refine_block(fw, fa, f0_start, sr, band_hz, H, pen_h, pen_f, r, f0, amps, order, hnr):
-    out = np.zeros(H)
-    for i in range(fw.shape[0]):
-        f = f0_start[i]
-        lmax = int(min(H, band_hz // f))
-        lmax = max(lmax, 1)
-        w, L, h = nls.analyse_frame(fw[i], fa[i], 2.0 * np.pi * f / sr, lmax, pen_h, pen_f, out)
-        t = r[i]
-        f0[t] = w * sr / (2.0 * np.pi)
-        row = np.zeros(H)
-        row[:lmax] = out[:lmax]
-        # harmonics above the analysed band are not measured
-        top = int(min(H, band_hz // f0[t]))
-        row[top:] = np.nan
-        amps[t] = row
-        order[t] = L
-        hnr[t] = h
+        starts = spectral.frame_starts(r, rc.hop, rc.frame_len)
+        fw = spectral.frames(yw, starts, rc.frame_len)
+        fa = fw if ya is yw else spectral.frames(ya, starts, rc.frame_len)
+        w, L, h, a = nls.analyse_frames(fw, fa, 2.0 * np.pi * f0_init[r] / rc.sr, order_init[r],
+                                        rc.band_hz / rc.sr * 2.0 * np.pi, H, pen_h, 1.5 * pen_h)
+        f0[r] = w * rc.sr / (2.0 * np.pi)
+        order[r] = L
+        hnr[r] = h
+        amps[r] = a
+    return f0, amps, order, hnr
 
 
 def estimate_frame(x, sr: float, *, fmin_hz: float, fmax_hz: float, max_harmonics: int = 30,
@@ -231,12 +218,13 @@ def estimate_frame(x, sr: float, *, fmin_hz: float, fmax_hz: float, max_harmonic
                         max_harmonics=max_harmonics, grid_cents=grid_cents, prewhiten=False)
     rc = dataclasses.replace(cfg.resolve(sr), frame_len=n, sr=float(sr))
     an = Analyzer.build(rc)
-    lf, ev, _, best = an.candidates(x[None, :])
+    lf, ev, order, best = an.candidates(x, np.zeros(1, dtype=np.int64))
     amps = np.zeros(max_harmonics)
     if not np.isfinite(best[0]):
         return float("nan"), 0, amps
     f = 2.0 ** lf[0, 0]
     lmax = max(1, int(min(max_harmonics, rc.band_hz // f)))
     pen_h = math.log(n)
-    w, L, _ = nls.analyse_frame(x, x, 2.0 * np.pi * f / sr, lmax, pen_h, 1.5 * pen_h, amps)
+    w, L, _ = nls.analyse_frame(x, x, 2.0 * np.pi * f / sr, int(order[0, 0]), lmax, pen_h,
+                                1.5 * pen_h, amps)
     return w * sr / (2.0 * np.pi), int(L), amps

@@ -1,0 +1,200 @@
+"""The label-file columns: names, units, formats, and the table <-> Track mapping.
+
+A *table* is a dict of numpy arrays keyed by column name, plus
+``"harmonic_amplitudes"`` (T, H).  Every writer takes a table and every reader
+returns one, checked by :func:`check_table`.
+"""
+
+from __future__ import annotations
+
+import re
+
+import numpy as np
+
+from ..errors import HarmtrackError
+
+__all__ = [
+    "COLUMNS",
+    "BASE_COLUMNS",
+    "CSV_FORMATS",
+    "amp_name",
+    "column_names",
+    "column_units",
+    "columns_markdown",
+    "track_table",
+    "check_table",
+]
+
+#: One row per column: (name, unit, meaning).  ``amp_h<k>`` stands for the
+#: amplitude columns ``amp_h1`` .. ``amp_hH``.
+COLUMNS: tuple[tuple[str, str, str], ...] = (
+    ("time_s", "s", "frame centre, seconds from the start of the input"),
+    ("f0_hz", "Hz", "fundamental frequency; nan where unvoiced"),
+    ("voiced", "0/1", "voicing decision: 1 voiced, 0 unvoiced"),
+    ("voicing_prob", "probability", "posterior probability that the frame is voiced, 0 to 1"),
+    ("model_order", "harmonics", "number of harmonics in the fitted model; 0 where unvoiced"),
+    ("hnr_db", "dB", "harmonics-to-noise ratio under the fitted model; nan where unvoiced"),
+    ("amp_h<k>", "linear amplitude, full scale = 1",
+     "peak amplitude of harmonic k (at k * f0_hz) in input units; "
+     "0 where absent, nan where unvoiced or above the analysed band"),
+)
+
+#: The fixed columns, in file order, before the amplitude columns.
+BASE_COLUMNS: tuple[str, ...] = tuple(name for name, _, _ in COLUMNS[:-1])
+
+#: printf-style format of each column in CSV files (NaN is written ``nan``).
+CSV_FORMATS: dict[str, str] = {
+    "time_s": "%.6f",
+    "f0_hz": "%.4f",
+    "voiced": "%d",
+    "voicing_prob": "%.4f",
+    "model_order": "%d",
+    "hnr_db": "%.2f",
+    "amp": "%.6g",
+}
+
+_FLOAT_COLUMNS = ("time_s", "f0_hz", "voicing_prob", "hnr_db")
+_AMP_RE = re.compile(r"amp_h([1-9][0-9]*)\Z")
+
+
+def amp_name(k: int) -> str:
+    """Column name of the amplitude of harmonic ``k`` (1-based)."""
+    return f"amp_h{k}"
+
+
+def column_names(n_harmonics: int) -> list[str]:
+    """All column names, in file order, for ``n_harmonics`` amplitude columns."""
+    return list(BASE_COLUMNS) + [amp_name(k) for k in range(1, n_harmonics + 1)]
+
+
+def column_units(n_harmonics: int) -> dict[str, str]:
+    """``{column name: unit}`` in file order."""
+    units = {name: unit for name, unit, _ in COLUMNS[:-1]}
+    amp_unit = COLUMNS[-1][1]
+    units.update({amp_name(k): amp_unit for k in range(1, n_harmonics + 1)})
+    return units
+
+
+def columns_markdown() -> str:
+    """The column table as Markdown (the text the documentation shows)."""
+    lines = ["| column | unit | meaning |", "|---|---|---|"]
+    lines += [f"| `{name}` | {unit} | {meaning} |" for name, unit, meaning in COLUMNS]
+    return "\n".join(lines)
+
+
+def track_table(track) -> dict[str, np.ndarray]:
+    """The columns of a :class:`harmtrack.Track` as a table.
+
+    Parameters
+    ----------
+    track : Track
+
+    Returns
+    -------
+    dict
+        Column arrays (float64; ``voiced`` bool, ``model_order`` int64) and
+        ``"harmonic_amplitudes"`` (T, H).
+    """
+    amps = np.asarray(track.harmonic_amplitudes, dtype=np.float64)
+    table = {
+        "time_s": np.asarray(track.times, dtype=np.float64),
+        "f0_hz": np.asarray(track.f0_hz, dtype=np.float64),
+        "voiced": np.asarray(track.voiced, dtype=bool),
+        "voicing_prob": np.asarray(track.voicing_prob, dtype=np.float64),
+        "model_order": np.asarray(track.model_order).astype(np.int64),
+        "hnr_db": np.asarray(track.hnr_db, dtype=np.float64),
+    }
+    if amps.ndim != 2:
+        raise HarmtrackError(f"harmonic_amplitudes must be 2-D, got shape {amps.shape}")
+    for k in range(1, amps.shape[1] + 1):
+        table[amp_name(k)] = amps[:, k - 1]
+    table["harmonic_amplitudes"] = amps
+    return check_table(table, name="<track>")
+
+
+def check_table(columns: dict, *, name: str) -> dict[str, np.ndarray]:
+    """Validate and normalise a table read from a file or built from a track.
+
+    Parameters
+    ----------
+    columns : dict
+        Column name -> 1-D array.  ``"harmonic_amplitudes"`` is optional: it is
+        built from the ``amp_h<k>`` columns and, when given, must agree with them.
+    name : str
+        File name used in error messages.
+
+    Returns
+    -------
+    dict
+        Arrays with the column dtypes, plus ``"harmonic_amplitudes"``.
+
+    Raises
+    ------
+    HarmtrackError
+        Missing, unexpected or non-consecutive columns, columns of different
+        lengths, non-finite or non-increasing times, voicing not 0/1, or
+        non-integer model orders.
+    """
+    given = dict(columns)
+    matrix = given.pop("harmonic_amplitudes", None)
+    missing = [c for c in BASE_COLUMNS if c not in given]
+    if missing:
+        raise HarmtrackError(f"{name}: missing column(s) {', '.join(missing)}")
+    amp_ks = []
+    for key in given:
+        if key in BASE_COLUMNS:
+            continue
+        m = _AMP_RE.match(key)
+        if m is None:
+            raise HarmtrackError(f"{name}: unexpected column {key!r}")
+        amp_ks.append(int(m.group(1)))
+    n_h = len(amp_ks)
+    if sorted(amp_ks) != list(range(1, n_h + 1)):
+        raise HarmtrackError(
+            f"{name}: amplitude columns must be amp_h1 .. amp_h{n_h} without gaps"
+        )
+    names = column_names(n_h)
+    out: dict[str, np.ndarray] = {}
+    n_rows = None
+    for key in names:
+        try:
+            arr = np.asarray(given[key], dtype=np.float64)
+        except (TypeError, ValueError):
+            raise HarmtrackError(f"{name}: column {key} holds non-numbers") from None
+        if arr.ndim != 1:
+            raise HarmtrackError(f"{name}: column {key} is not 1-D (shape {arr.shape})")
+        if n_rows is None:
+            n_rows = arr.shape[0]
+        elif arr.shape[0] != n_rows:
+            raise HarmtrackError(
+                f"{name}: column {key} has {arr.shape[0]} rows, column time_s has {n_rows}"
+            )
+        out[key] = arr
+    t = out["time_s"]
+    if not np.all(np.isfinite(t)):
+        raise HarmtrackError(f"{name}: time_s holds non-finite values")
+    if t.size > 1 and not np.all(np.diff(t) > 0):
+        row = int(np.argmin(np.diff(t) > 0)) + 1
+        raise HarmtrackError(
+            f"{name}: times are not increasing (row {row + 1}: {t[row]:g} s after {t[row - 1]:g} s)"
+        )
+    v = out["voiced"]
+    if not np.all((v == 0) | (v == 1)):
+        raise HarmtrackError(f"{name}: column voiced must hold only 0 and 1")
+    out["voiced"] = v.astype(bool)
+    mo = out["model_order"]
+    if not np.all(np.isfinite(mo) & (mo >= 0) & (mo == np.round(mo))):
+        raise HarmtrackError(f"{name}: column model_order must hold whole numbers >= 0")
+    out["model_order"] = mo.astype(np.int64)
+    amps = np.empty((n_rows, n_h), dtype=np.float64)
+    for k in range(1, n_h + 1):
+        amps[:, k - 1] = out[amp_name(k)]
+    if matrix is not None:
+        matrix = np.asarray(matrix, dtype=np.float64)
+        if matrix.shape != amps.shape or not np.array_equal(matrix, amps, equal_nan=True):
+            raise HarmtrackError(
+                f"{name}: harmonic_amplitudes (shape {matrix.shape}) does not match the "
+                f"amp_h columns (shape {amps.shape})"
+            )
+    out["harmonic_amplitudes"] = amps
+    return out

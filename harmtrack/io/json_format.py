@@ -1,0 +1,84 @@
+"""Label files as JSON.
+
+Layout::
+
+    {
+     "provenance": {...},
+     "columns": {"time_s": "s", "f0_hz": "Hz", ...},
+     "frames": {
+      "time_s": [0.0, 0.01, ...],
+      "f0_hz": [null, 148.2, ...],
+      ...
+     }
+    }
+
+``columns`` gives the unit of every column, ``frames`` one list per column.
+Missing values (NaN) are ``null``; ``voiced`` holds 0/1 and ``model_order``
+whole numbers.  Numbers keep full double precision.  Keys of ``provenance``
+are sorted; columns keep the file order of the CSV layout.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+
+from ..errors import HarmtrackError
+from .columns import column_names, column_units
+from .provenance import dumps_compact
+
+__all__ = ["encode", "decode"]
+
+
+def _dump(obj) -> str:
+    return json.dumps(obj, separators=(",", ":"), ensure_ascii=True, allow_nan=False)
+
+
+def _values(name: str, arr) -> list:
+    if name in ("voiced", "model_order"):
+        return [int(v) for v in arr.tolist()]
+    return [v if math.isfinite(v) else None for v in arr.tolist()]
+
+
+def encode(table: dict, provenance: dict) -> bytes:
+    """JSON bytes of a checked table (see :func:`harmtrack.io.columns.check_table`)."""
+    n_h = table["harmonic_amplitudes"].shape[1]
+    names = column_names(n_h)
+    frames = ",\n".join(f"  {_dump(n)}: {_dump(_values(n, table[n]))}" for n in names)
+    text = (
+        "{\n"
+        f' "provenance": {dumps_compact(provenance)},\n'
+        f' "columns": {_dump(column_units(n_h))},\n'
+        ' "frames": {\n'
+        f"{frames}\n"
+        " }\n"
+        "}\n"
+    )
+    return text.encode("ascii")
+
+
+def decode(data: bytes, *, name: str) -> tuple[dict, dict]:
+    """Columns (unchecked; ``null`` read as NaN later) and provenance of JSON label bytes.
+
+    Raises
+    ------
+    HarmtrackError
+        Not JSON, or not an object with ``provenance`` and ``frames`` objects.
+    """
+    try:
+        doc = json.loads(data)
+    except (json.JSONDecodeError, UnicodeDecodeError) as exc:
+        reason = getattr(exc, "msg", None) or type(exc).__name__
+        raise HarmtrackError(f"{name}: not a JSON label file ({reason})") from None
+    if not isinstance(doc, dict):
+        raise HarmtrackError(f"{name}: not a JSON label file (top level is not an object)")
+    frames = doc.get("frames")
+    if not isinstance(frames, dict):
+        raise HarmtrackError(f"{name}: JSON label file without a \"frames\" object")
+    provenance = doc.get("provenance")
+    if not isinstance(provenance, dict):
+        raise HarmtrackError(f"{name}: JSON label file without a \"provenance\" object")
+    for key, values in frames.items():
+        if not isinstance(values, list):
+            raise HarmtrackError(f"{name}: frames.{key} is not a list")
+    return dict(frames), provenance
