@@ -211,37 +211,51 @@ def _energy_at(x, omega, L):
 
 
 @njit(cache=True)
-def refine_f0(x, omega0, L, rel_step):
+def _vertex(em, e0, ep, w, d):
+    """Abscissa of the parabola through (w-d, em), (w, e0), (w+d, ep), within 1.5 d of w."""
+    den = em - 2.0 * e0 + ep
+    if den < 0.0:
+        off = 0.5 * (em - ep) / den
+        off = min(1.5, max(-1.5, off))
+        return w + off * d
+    return w - d if em > ep else w + d
+
+
+@njit(cache=True)
+def refine_f0(x, omega0, L, rel_step, lmax, energies):
     """Maximise the explained energy of order ``L`` near ``omega0``.
 
     Two rounds of three-point parabolic interpolation, the first with a step of
-    ``rel_step * omega0``, the second four times finer.  The result is kept inside
-    the first round's bracket.
+    ``rel_step * omega0``, the second four times finer; the result stays inside
+    ``omega0 +- 2 * rel_step * omega0``.  The centre of the second round is
+    evaluated for every order up to ``lmax`` into ``energies`` (for the order
+    selection that follows).
+
+    Returns
+    -------
+    omega : float
+        Refined f0, radians per sample.
+    usable : int
+        Highest order with a valid entry in ``energies``.
+    omega_sel : float
+        Frequency at which ``energies`` was evaluated.
     """
-    w = omega0
     d = rel_step * omega0
     lo = omega0 - 2.0 * d
     hi = omega0 + 2.0 * d
-    for _ in range(2):
-        em = _energy_at(x, w - d, L)
-        e0 = _energy_at(x, w, L)
-        ep = _energy_at(x, w + d, L)
-        den = em - 2.0 * e0 + ep
-        if den < 0.0:
-            off = 0.5 * (em - ep) / den
-            if off > 1.5:
-                off = 1.5
-            elif off < -1.5:
-                off = -1.5
-            w = w + off * d
-        else:
-            w = w - d if em > ep else w + d
-        if w < lo:
-            w = lo
-        elif w > hi:
-            w = hi
-        d *= 0.25
-    return w
+    em = _energy_at(x, omega0 - d, L)
+    e0 = _energy_at(x, omega0, L)
+    ep = _energy_at(x, omega0 + d, L)
+    w1 = min(hi, max(lo, _vertex(em, e0, ep, omega0, d)))
+    d *= 0.25
+    usable = order_energies(x, w1, lmax, energies)
+    e0 = energies[min(L, usable)]
+    em = _energy_at(x, w1 - d, L)
+    ep = _energy_at(x, w1 + d, L)
+    w = w1
+    if usable >= L:
+        w = min(hi, max(lo, _vertex(em, e0, ep, w1, d)))
+    return w, usable, w1
 
 
 @njit(cache=True)
@@ -360,10 +374,9 @@ def analyse_frame(x, xa, omega0, order0, lmax, pen_h, pen_f, out_amps):
     """
     N = x.shape[0]
     L0 = min(max(order0, 1), lmax)
-    # first step: about half the width of the order-L0 energy peak
-    w = refine_f0(x, omega0, L0, math.pi / (N * omega0 * L0))
     en = np.zeros(lmax + 1)
-    usable = order_energies(x, w, lmax, en)
+    # first step: about half the width of the order-L0 energy peak
+    w, usable, _ = refine_f0(x, omega0, L0, math.pi / (N * omega0 * L0), lmax, en)
     R = 0.0
     for n in range(N):
         R += x[n] * x[n]

@@ -22,6 +22,11 @@ loses the energy of the odd partials.  A compressed salience (sum of harmonic
 magnitudes, not powers) supplies a second candidate so that one dominant partial
 cannot hide a full harmonic series.
 
+The spectrum is first resampled onto a fine logarithmic frequency axis, on
+which the harmonics of every grid frequency sit at fixed offsets
+``1200 log2(k)`` cents: the sum over harmonics becomes a sum of shifted copies
+(subharmonic summation), read from contiguous memory.
+
 References
 ----------
 M. G. Christensen and A. Jakobsson, *Multi-Pitch Estimation*, Morgan & Claypool,
@@ -32,11 +37,12 @@ D. J. Hermes, "Measurement of pitch by subharmonic summation", JASA 83(1), 1988.
 from __future__ import annotations
 
 import math
+from typing import NamedTuple
 
 import numpy as np
 from numba import njit
 
-__all__ = ["log_grid", "harmonic_tables", "pick_candidates", "evidence_map"]
+__all__ = ["log_grid", "HarmonicTables", "harmonic_tables", "pick_candidates", "evidence_map"]
 
 
 def log_grid(fmin_hz: float, fmax_hz: float, cents: float) -> np.ndarray:
@@ -45,65 +51,133 @@ def log_grid(fmin_hz: float, fmax_hz: float, cents: float) -> np.ndarray:
     return fmin_hz * 2.0 ** (np.arange(n) * cents / 1200.0)
 
 
-def harmonic_tables(grid_hz: np.ndarray, *, df: float, band_hz: float, max_harmonics: int):
-    """Bin positions of the harmonics of every grid frequency.
+#: Sub-steps of the fine log-frequency axis per grid step: with a 10-cent grid the
+#: harmonics are read within 1.25 cents of their exact frequency.
+FINE_STEPS = 4
 
-    The power at harmonic ``k`` is read from the spectrum by three-point
-    (quadratic Lagrange) interpolation around the nearest bin, which keeps the
-    error at a spectral peak far below the linear interpolation's.
 
-    Returns
-    -------
-    idx : ndarray of int64, shape (G, H)
-        Nearest FFT bin of harmonic ``k`` of grid point ``g`` (column ``k - 1``).
-    frac : ndarray, shape (G, H, 3)
-        Interpolation weights of bins ``idx - 1``, ``idx``, ``idx + 1``.
-    lmax : ndarray of int64, shape (G,)
-        Highest harmonic below ``band_hz`` (at most ``max_harmonics``).
+class HarmonicTables(NamedTuple):
+    """Lookup tables of the harmonic summation (see :func:`harmonic_tables`)."""
+
+    sp_idx: np.ndarray   # (J,) nearest FFT bin of each fine log-frequency point
+    sp_w: np.ndarray     # (J, 3) quadratic interpolation weights of bins idx-1, idx, idx+1
+    h_phase: np.ndarray  # (H,) fine sub-step of harmonic k's offset
+    h_shift: np.ndarray  # (H,) whole grid steps of harmonic k's offset
+    gend: np.ndarray     # (H,) number of grid points whose harmonic k lies in the band
+    lmax: np.ndarray     # (G,) highest harmonic inside the band, per grid point
+
+
+def harmonic_tables(grid_hz: np.ndarray, *, df: float, band_hz: float,
+                    max_harmonics: int) -> HarmonicTables:
+    """Tables for :func:`pick_candidates` on the log grid ``grid_hz``.
+
+    The fine axis has ``FINE_STEPS`` points per grid step, from ``grid_hz[0]`` up
+    to the band edge.  Fine point ``j`` (frequency ``grid_hz[0] * 2**(j c / 1200)``)
+    is read from the power spectrum (bin width ``df``) by three-point quadratic
+    interpolation, which keeps the error at a spectral peak far below linear
+    interpolation's.  Harmonic ``k`` of grid point ``g`` is fine point
+    ``FINE_STEPS * g + round(FINE_STEPS * 1200 log2(k) / c)``.
     """
+    G = grid_hz.size
+    c = 1200.0 * math.log2(grid_hz[1] / grid_hz[0]) if G > 1 else 10.0
+    fine_c = c / FINE_STEPS
+    n_oct = math.log2(band_hz / grid_hz[0])
+    J = int(math.floor(1200.0 * n_oct / fine_c)) + 2
+    freqs = grid_hz[0] * 2.0 ** (np.arange(J) * fine_c / 1200.0)
+    pos = freqs / df
+    sp_idx = np.maximum(np.round(pos).astype(np.int64), 1)
+    d = pos - sp_idx
+    sp_w = np.stack([0.5 * d * (d - 1.0), 1.0 - d * d, 0.5 * d * (d + 1.0)], axis=-1)
     k = np.arange(1, max_harmonics + 1)
-    pos = grid_hz[:, None] * k[None, :] / df
-    idx = np.maximum(np.round(pos).astype(np.int64), 1)
-    d = pos - idx
-    frac = np.stack([0.5 * d * (d - 1.0), 1.0 - d * d, 0.5 * d * (d + 1.0)], axis=-1)
+    off = np.round(FINE_STEPS * 1200.0 * np.log2(k) / c).astype(np.int64)
+    h_shift, h_phase = np.divmod(off, FINE_STEPS)
     lmax = np.minimum(max_harmonics, np.floor(band_hz / grid_hz)).astype(np.int64)
     lmax = np.maximum(lmax, 1)
-    return idx, frac, lmax
+    gend = np.array([np.count_nonzero(lmax >= kk) for kk in k], dtype=np.int64)
+    # every fine point read must exist
+    need = FINE_STEPS * (gend - 1 + h_shift) + h_phase
+    J = max(J, int(need.max()) + 1)
+    if sp_idx.size < J:
+        extra = grid_hz[0] * 2.0 ** (np.arange(sp_idx.size, J) * fine_c / 1200.0) / df
+        ei = np.maximum(np.round(extra).astype(np.int64), 1)
+        ed = extra - ei
+        sp_idx = np.concatenate([sp_idx, ei])
+        sp_w = np.concatenate([sp_w, np.stack([0.5 * ed * (ed - 1.0), 1.0 - ed * ed,
+                                               0.5 * ed * (ed + 1.0)], axis=-1)])
+    return HarmonicTables(sp_idx, sp_w, h_phase, h_shift, gend, lmax)
 
 
-@njit(cache=True)
-def _frame_evidence(p, r_tot, mag_ref, idx, frac, lmax, norm, n_eff, pen_h, pen_f, floor_rel,
-                    ev, order, sal):
-    """Evidence, best order and compressed salience of one frame (see module notes)."""
-    G = idx.shape[0]
-    q = math.exp(2.0 * pen_h / n_eff)
+@njit(cache=True, fastmath=True)
+def _log_spectrum(p, sp_idx, sp_w, n_phase, plog, mlog):
+    """Power and magnitude on the fine log axis, split by sub-step: ``plog[phase, m]``."""
+    J = sp_idx.shape[0]
+    B = p.shape[0]
+    M = (J + n_phase - 1) // n_phase
+    for ph in range(n_phase):
+        for m in range(M):
+            j = m * n_phase + ph
+            v = 0.0
+            if j < J:
+                i = sp_idx[j]
+                if i + 1 < B:
+                    v = p[i - 1] * sp_w[j, 0] + p[i] * sp_w[j, 1] + p[i + 1] * sp_w[j, 2]
+            v = max(v, 0.0)
+            plog[ph, m] = v
+            mlog[ph, m] = math.sqrt(v)
+
+
+@njit(cache=True, fastmath=True)
+def _frame_evidence(p, r_tot, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n_phase,
+                    norm, n_eff, pen_h, pen_f, floor_rel, plog, mlog, ev, sal):
+    """Evidence and compressed salience of one frame on the whole grid (module notes).
+
+    Leaves the frame's log-frequency spectrum in ``plog`` / ``mlog`` for
+    :func:`_best_order`.
+    """
+    G = ev.shape[0]
+    _log_spectrum(p, tab_idx, tab_w, n_phase, plog, mlog)
     half = 0.5 * n_eff
     c0 = half * math.log(r_tot)
     floor_abs = r_tot * floor_rel
+    # local accumulators and 1-D row views let the compiler vectorise the inner loop
+    acc = np.zeros(G)
+    comp = np.zeros(G)
+    low = np.full(G, 1e300)
+    qk = 1.0
+    q = math.exp(2.0 * pen_h / n_eff)
+    for k in range(h_phase.shape[0]):
+        qk *= q
+        pr = plog[h_phase[k], h_shift[k]:]
+        mr = mlog[h_phase[k], h_shift[k]:]
+        for g in range(gend[k]):
+            ek = acc[g] + pr[g]
+            acc[g] = ek
+            comp[g] += mr[g]
+            low[g] = min(low[g], max(r_tot - ek * norm, floor_abs) * qk)
     for g in range(G):
-        e = 0.0
-        s = 0.0
-        mult = 1.0
-        best = 1e300
-        best_l = 1
-        for k in range(lmax[g]):
-            i = idx[g, k]
-            pk = p[i - 1] * frac[g, k, 0] + p[i] * frac[g, k, 1] + p[i + 1] * frac[g, k, 2]
-            if pk < 0.0:
-                pk = 0.0
-            e += pk
-            s += math.sqrt(pk)
-            mult *= q
-            res = r_tot - e * norm
-            if res < floor_abs:
-                res = floor_abs
-            res *= mult
-            if res < best:
-                best = res
-                best_l = k + 1
-        ev[g] = c0 - (half * math.log(best) + pen_f)
-        order[g] = best_l
-        sal[g] = s / mag_ref
+        ev[g] = c0 - (half * math.log(low[g]) + pen_f)
+        sal[g] = comp[g] / mag_ref
+
+
+@njit(cache=True)
+def _best_order(g, r_tot, plog, h_phase, h_shift, gend, norm, n_eff, pen_h, floor_rel):
+    """Model order that minimises the penalised cost at grid point ``g``."""
+    q = math.exp(2.0 * pen_h / n_eff)
+    floor_abs = r_tot * floor_rel
+    e = 0.0
+    qk = 1.0
+    best = 1e300
+    best_l = 1
+    for k in range(h_phase.shape[0]):
+        if g >= gend[k]:
+            break
+        qk *= q
+        e += plog[h_phase[k], g + h_shift[k]]
+        res = max(r_tot - e * norm, floor_abs) * qk
+        if res < best:
+            best = res
+            best_l = k + 1
+    return best_l
 
 
 @njit(cache=True)
@@ -121,8 +195,14 @@ def _parabolic(ym, y0, yp):
 
 
 @njit(cache=True)
-def pick_candidates(P, R, mag_ref, idx, frac, lmax, log2_grid, norm, n_eff, pen_h, pen_f,
-                    floor_rel, K):
+def _scratch(n_phase, J):
+    m = J // n_phase + 2
+    return np.zeros((n_phase, m)), np.zeros((n_phase, m))
+
+
+@njit(cache=True)
+def pick_candidates(P, R, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, log2_grid,
+                    norm, n_eff, pen_h, pen_f, floor_rel, K):
     """Top-``K`` f0 candidates of every frame from the harmonic evidence.
 
     Parameters
@@ -133,8 +213,8 @@ def pick_candidates(P, R, mag_ref, idx, frac, lmax, log2_grid, norm, n_eff, pen_
         Weighted frame energies ``sum(w * x**2)``.
     mag_ref : ndarray, shape (T,)
         Per-frame magnitude reference for the compressed salience (> 0).
-    idx, frac, lmax : ndarray
-        From :func:`harmonic_tables`.
+    tab_idx, tab_w, h_phase, h_shift, gend, n_phase :
+        Fields of :class:`HarmonicTables` and ``FINE_STEPS``.
     log2_grid : ndarray, shape (G,)
         log2 of the grid frequencies.
     norm, n_eff, pen_h, pen_f, floor_rel : float
@@ -156,20 +236,20 @@ def pick_candidates(P, R, mag_ref, idx, frac, lmax, log2_grid, norm, n_eff, pen_
         Largest evidence in the frame.
     """
     T = P.shape[0]
-    G = idx.shape[0]
+    G = log2_grid.shape[0]
     cand_f = np.full((T, K), np.nan)
     cand_ev = np.full((T, K), -np.inf)
     cand_o = np.zeros((T, K), dtype=np.int64)
     best_ev = np.full(T, -np.inf)
     ev = np.empty(G)
-    order = np.empty(G, dtype=np.int64)
     sal = np.empty(G)
+    plog, mlog = _scratch(n_phase, tab_idx.shape[0])
     step = log2_grid[1] - log2_grid[0] if G > 1 else 1.0
     for t in range(T):
         if not (R[t] > 0.0):
             continue
-        _frame_evidence(P[t], R[t], mag_ref[t], idx, frac, lmax, norm, n_eff, pen_h, pen_f,
-                        floor_rel, ev, order, sal)
+        _frame_evidence(P[t], R[t], mag_ref[t], tab_idx, tab_w, h_phase, h_shift, gend, n_phase,
+                        norm, n_eff, pen_h, pen_f, floor_rel, plog, mlog, ev, sal)
         # Local maxima of the evidence, strongest first (insertion into a short list).
         n_found = 0
         for g in range(G):
@@ -180,7 +260,6 @@ def pick_candidates(P, R, mag_ref, idx, frac, lmax, log2_grid, norm, n_eff, pen_
                     d, h = _parabolic(left, ev[g], right)
                 else:
                     d, h = 0.0, ev[g]
-                # insert into sorted list of length K - 1
                 pos = n_found
                 while pos > 0 and cand_ev[t, pos - 1] < h:
                     pos -= 1
@@ -192,7 +271,7 @@ def pick_candidates(P, R, mag_ref, idx, frac, lmax, log2_grid, norm, n_eff, pen_
                         cand_o[t, j] = cand_o[t, j - 1]
                     cand_ev[t, pos] = h
                     cand_f[t, pos] = log2_grid[g] + d * step
-                    cand_o[t, pos] = order[g]
+                    cand_o[t, pos] = g
                     if n_found < K - 1:
                         n_found += 1
         if n_found > 0:
@@ -214,20 +293,30 @@ def pick_candidates(P, R, mag_ref, idx, frac, lmax, log2_grid, norm, n_eff, pen_
                 d, h = 0.0, ev[gbest]
             cand_f[t, n_found] = lf + d * step
             cand_ev[t, n_found] = h
-            cand_o[t, n_found] = order[gbest]
+            cand_o[t, n_found] = gbest
+        # grid indices -> model orders
+        for j in range(K):
+            if not math.isnan(cand_f[t, j]):
+                cand_o[t, j] = _best_order(cand_o[t, j], R[t], plog, h_phase, h_shift, gend, norm,
+                                           n_eff, pen_h, floor_rel)
     return cand_f, cand_ev, cand_o, best_ev
 
 
 @njit(cache=True)
-def evidence_map(P, R, mag_ref, idx, frac, lmax, norm, n_eff, pen_h, pen_f, floor_rel):
+def evidence_map(P, R, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, G, norm, n_eff,
+                 pen_h, pen_f, floor_rel):
     """Full (T, G) evidence, order and compressed-salience maps (for figures and tests)."""
     T = P.shape[0]
-    G = idx.shape[0]
     ev = np.full((T, G), -np.inf)
     order = np.zeros((T, G), dtype=np.int64)
     sal = np.zeros((T, G))
+    plog, mlog = _scratch(n_phase, tab_idx.shape[0])
     for t in range(T):
         if R[t] > 0.0:
-            _frame_evidence(P[t], R[t], mag_ref[t], idx, frac, lmax, norm, n_eff, pen_h, pen_f,
-                            floor_rel, ev[t], order[t], sal[t])
+            _frame_evidence(P[t], R[t], mag_ref[t], tab_idx, tab_w, h_phase, h_shift, gend,
+                            n_phase, norm, n_eff, pen_h, pen_f, floor_rel, plog, mlog,
+                            ev[t], sal[t])
+            for g in range(G):
+                order[t, g] = _best_order(g, R[t], plog, h_phase, h_shift, gend, norm, n_eff,
+                                          pen_h, floor_rel)
     return ev, order, sal

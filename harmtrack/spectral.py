@@ -184,7 +184,7 @@ def power_spectra(fr: np.ndarray, window: np.ndarray, nfft: int) -> np.ndarray:
 
 
 def noise_floor_psd(
-    y: np.ndarray, sr: float, *, frame_len: int, nfft: int, max_frames: int = 1500,
+    y: np.ndarray, sr: float, *, frame_len: int, nfft: int, max_frames: int = 400,
     time_quantile: float = 0.2, smooth_hz: float = 400.0,
 ) -> np.ndarray:
     """Smoothed long-term noise floor of ``y``: a low quantile over time and frequency.

@@ -41,11 +41,15 @@ class Analyzer:
     window: np.ndarray
     grid_hz: np.ndarray
     log2_grid: np.ndarray
-    idx: np.ndarray
-    frac: np.ndarray
-    lmax: np.ndarray
+    tables: salience.HarmonicTables
     norm: float
     n_eff: float
+
+    @property
+    def kernel_tables(self) -> tuple:
+        """The table arguments of the salience kernels, in their order."""
+        t = self.tables
+        return (t.sp_idx, t.sp_w, t.h_phase, t.h_shift, t.gend, salience.FINE_STEPS)
 
     @classmethod
     def build(cls, rc: ResolvedConfig) -> "Analyzer":
@@ -61,7 +65,7 @@ class Analyzer:
         mag_ref = np.sqrt(np.mean(P[:, 1:top], axis=1)) + 1e-300
         pen_h = math.log(self.n_eff)
         return salience.pick_candidates(
-            P, R, mag_ref, self.idx, self.frac, self.lmax, self.log2_grid, self.norm,
+            P, R, mag_ref, *self.kernel_tables, self.log2_grid, self.norm,
             self.n_eff, pen_h, 1.5 * pen_h, RESIDUAL_FLOOR, self.rc.cfg.n_candidates,
         )
 
@@ -71,11 +75,11 @@ def _analyzer_cached(rc: ResolvedConfig) -> Analyzer:
     cfg = rc.cfg
     w = spectral.analysis_window(rc.frame_len, "hann")
     grid = salience.log_grid(cfg.fmin_hz, cfg.fmax_hz, cfg.grid_cents)
-    idx, frac, lmax = salience.harmonic_tables(
+    tables = salience.harmonic_tables(
         grid, df=rc.sr / rc.nfft, band_hz=rc.band_hz, max_harmonics=cfg.max_harmonics
     )
-    return Analyzer(rc=rc, window=w, grid_hz=grid, log2_grid=np.log2(grid), idx=idx, frac=frac,
-                    lmax=lmax, norm=2.0 / w.sum(), n_eff=w.sum() ** 2 / np.sum(w**2))
+    return Analyzer(rc=rc, window=w, grid_hz=grid, log2_grid=np.log2(grid), tables=tables,
+                    norm=2.0 / w.sum(), n_eff=w.sum() ** 2 / np.sum(w**2))
 
 
 def _emissions(cand_ev: np.ndarray, rc: ResolvedConfig) -> tuple[np.ndarray, np.ndarray]:
