@@ -12,10 +12,9 @@ True
 from __future__ import annotations
 
 from ._version import __version__
-from .api import track, track_file
 from .config import PRESETS, TrackerConfig, make_config
 from .errors import HarmtrackError, HarmtrackWarning, InputError
-from .track import Track
+from .result import Track
 
 __all__ = [
     "__version__",
@@ -29,3 +28,17 @@ __all__ = [
     "InputError",
     "HarmtrackWarning",
 ]
+
+
+def __getattr__(name: str):
+    # The entry points pull in numba and scipy; load them on first use so that
+    # `import harmtrack` (and `harmtrack --help`) stays fast.
+    if name in ("track", "track_file"):
+        from . import api
+
+        return getattr(api, name)
+    raise AttributeError(f"module 'harmtrack' has no attribute {name!r}")
+
+
+def __dir__():
+    return sorted(set(globals()) | {"track", "track_file"})

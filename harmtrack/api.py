@@ -6,7 +6,7 @@ import os
 
 from .audio import load
 from .config import make_config
-from .track import Track
+from .result import Track
 from .tracker import track_signal
 
 __all__ = ["track", "track_file"]

@@ -5,10 +5,8 @@ from __future__ import annotations
 import hashlib
 import os
 from dataclasses import dataclass
-from fractions import Fraction
 
 import numpy as np
-from scipy import signal as sps
 
 from .errors import InputError, warn
 
@@ -162,13 +160,13 @@ def check_signal(y: np.ndarray, sr: float, *, name: str = "<array>") -> None:
 
 
 def resample(y: np.ndarray, sr_in: float, sr_out: float) -> tuple[np.ndarray, float]:
-    """Polyphase resampling from ``sr_in`` to about ``sr_out`` (Kaiser-windowed FIR, scipy).
+    """Band-limited resampling from ``sr_in`` to ``sr_out`` Hz (soxr, high quality).
 
-    Returns the samples and the exact output rate ``sr_in * up / down`` of the
-    rational ratio used (within 0.1 % of ``sr_out``).
+    Returns the samples and the output rate.
     """
     if sr_in == sr_out:
         return y, float(sr_in)
-    ratio = Fraction(sr_out / sr_in).limit_denominator(1000)
-    out = sps.resample_poly(y, ratio.numerator, ratio.denominator)
-    return out, float(sr_in) * ratio.numerator / ratio.denominator
+    import soxr
+
+    out = soxr.resample(np.ascontiguousarray(y, dtype=np.float64), sr_in, sr_out, quality="HQ")
+    return np.asarray(out, dtype=np.float64), float(sr_out)

@@ -7,9 +7,7 @@ the (analysis-rate) signal; samples outside the signal count as zeros.
 from __future__ import annotations
 
 import numpy as np
-import scipy.fft
 from numba import njit
-from scipy import signal as sps
 
 __all__ = [
     "frame_count",
@@ -115,21 +113,46 @@ def windowed_spectra(y: np.ndarray, starts: np.ndarray, window: np.ndarray, nfft
     energy = np.empty(F)
     _window_frames(np.ascontiguousarray(y, dtype=np.float64), np.asarray(starts, dtype=np.int64),
                    window, buf, energy)
-    spec = scipy.fft.rfft(buf, axis=1, overwrite_x=True)
+    spec = np.fft.rfft(buf, axis=1)
     power = np.empty(spec.shape)
     _abs2(spec, power)
     return power, energy
 
 
+#: Cosine-sum windows ``w[n] = sum_m (-1)^m a_m cos(2 pi m n / N)``, coefficients
+#: as tabulated by Harris (1978).
+COSINE_WINDOWS = {
+    "hann": (0.5, 0.5),
+    "hamming": (0.54, 0.46),
+    "blackman": (0.42, 0.5, 0.08),
+    "blackmanharris": (0.35875, 0.48829, 0.14128, 0.01168),
+}
+
+
 def analysis_window(frame_len: int, name: str = "hann") -> np.ndarray:
-    """Periodic ("DFT-even") analysis window of ``frame_len`` samples.
+    """Periodic ("DFT-even") cosine-sum analysis window of ``frame_len`` samples.
+
+    Parameters
+    ----------
+    frame_len : int
+        Window length in samples.
+    name : {"hann", "hamming", "blackman", "blackmanharris"}
+        ``"blackmanharris"`` is the 4-term, -92 dB window.
 
     References
     ----------
     F. J. Harris, "On the use of windows for harmonic analysis with the discrete
     Fourier transform", Proc. IEEE 66(1), 51-83, 1978.
     """
-    return sps.get_window(name, frame_len, fftbins=True).astype(np.float64)
+    try:
+        coef = COSINE_WINDOWS[name]
+    except KeyError:
+        raise ValueError(f"unknown window {name!r}; choose one of {sorted(COSINE_WINDOWS)}") from None
+    phase = 2.0 * np.pi * np.arange(frame_len) / frame_len
+    w = np.zeros(frame_len)
+    for m, a in enumerate(coef):
+        w += (-1) ** m * a * np.cos(m * phase)
+    return w
 
 
 def window_properties(w: np.ndarray, *, oversample: int = 64) -> dict:
@@ -220,7 +243,9 @@ def whitening_filter(floor: np.ndarray, *, n_taps: int = 129, max_gain_db: float
     The gain range is limited to ``max_gain_db`` so that empty bands (for example
     below a telephone channel's cut-off) are not boosted without bound.  The
     response is normalised to unit mean power gain, so white noise passes
-    unchanged in level.
+    unchanged in level.  Design by frequency sampling: the inverse real FFT of
+    the (zero-phase) magnitude, cut to ``n_taps`` around lag 0 and tapered with a
+    Hann window.
 
     Returns
     -------
@@ -228,6 +253,7 @@ def whitening_filter(floor: np.ndarray, *, n_taps: int = 129, max_gain_db: float
         Odd-length symmetric impulse response (linear phase, delay ``n_taps // 2``).
     """
     floor = np.asarray(floor, dtype=np.float64)
+    n_taps = int(n_taps) | 1
     ref = np.max(floor)
     if not np.isfinite(ref) or ref <= 0:
         h = np.zeros(n_taps)
@@ -236,14 +262,27 @@ def whitening_filter(floor: np.ndarray, *, n_taps: int = 129, max_gain_db: float
     floor = np.maximum(floor, ref * 10 ** (-max_gain_db / 10))
     mag = 1.0 / np.sqrt(floor)
     mag /= np.sqrt(np.mean(mag**2))
-    freqs = np.linspace(0.0, 1.0, floor.size)
-    return sps.firwin2(n_taps, freqs, mag, window="hann")
+    imp = np.fft.irfft(mag)
+    half = n_taps // 2
+    h = np.concatenate([imp[-half:], imp[: half + 1]])
+    taper = 0.5 + 0.5 * np.cos(np.pi * np.arange(-half, half + 1) / (half + 1))
+    return h * taper
 
 
-def prewhiten(y: np.ndarray, h: np.ndarray) -> np.ndarray:
-    """Filter ``y`` with the zero-phase FIR ``h`` (output aligned with the input)."""
+def prewhiten(y: np.ndarray, h: np.ndarray, *, block: int = 1 << 16) -> np.ndarray:
+    """Filter ``y`` with the zero-phase FIR ``h`` (output aligned with the input).
+
+    FFT overlap-add in blocks of ``block`` samples, so memory stays bounded.
+    """
     if h.size == 1:
         return y * h[0]
-    out = sps.oaconvolve(y, h, mode="full")
     d = h.size // 2
-    return out[d : d + y.size]
+    n = y.size
+    nfft = 1 << int(np.ceil(np.log2(block + h.size - 1)))
+    H = np.fft.rfft(h, nfft)
+    full = np.zeros(n + h.size - 1)
+    for b0 in range(0, n, block):
+        seg = y[b0:b0 + block]
+        out = np.fft.irfft(np.fft.rfft(seg, nfft) * H, nfft)[: seg.size + h.size - 1]
+        full[b0:b0 + out.size] += out
+    return full[d:d + n]

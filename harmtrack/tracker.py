@@ -16,7 +16,7 @@ from . import nls, salience, smoothing, spectral
 from .audio import as_mono, check_signal, resample
 from .config import ResolvedConfig, TrackerConfig
 from .errors import InputError
-from .track import Track
+from .result import Track
 
 __all__ = ["track_signal", "Analyzer", "estimate_frame", "EVIDENCE_OFFSET"]
 
@@ -28,6 +28,12 @@ EVIDENCE_OFFSET = 0.0
 #: Residual floor of the approximate fit, relative to the frame energy (-20 dB):
 #: the model is never trusted to explain more than that.
 RESIDUAL_FLOOR = 10 ** -2.0
+
+#: Level of the noise every frame is assumed to hold at least, in dB below the
+#: signal's peak: digital silence and filter leakage then count as noise, not as a
+#: perfectly fitting harmonic source.  16-bit quantisation noise lies near -101 dB
+#: re full scale (common practice: 6.02 dB per bit + 1.76 dB).
+NOISE_FLOOR_DB = 90.0
 
 #: Frames processed per block: small enough that the padded FFT buffers stay in cache.
 BLOCK_FRAMES = 128
@@ -55,12 +61,15 @@ class Analyzer:
     def build(cls, rc: ResolvedConfig) -> "Analyzer":
         return _analyzer_cached(rc)
 
-    def candidates(self, y: np.ndarray, starts: np.ndarray):
+    def candidates(self, y: np.ndarray, starts: np.ndarray, *, noise_var: float = 0.0):
         """Candidates of the frames of ``y`` starting at ``starts``.
 
-        See :func:`salience.pick_candidates` for the returned arrays.
+        ``noise_var`` is a noise power per sample assumed present in every frame
+        on top of what the frame holds (see :data:`NOISE_FLOOR_DB`).  See
+        :func:`salience.pick_candidates` for the returned arrays.
         """
         P, R = spectral.windowed_spectra(y, starts, self.window, self.rc.nfft)
+        R += noise_var * self.window.sum()
         top = int(np.ceil(self.rc.band_hz / (self.rc.sr / self.rc.nfft)))
         mag_ref = np.sqrt(np.mean(P[:, 1:top], axis=1)) + 1e-300
         pen_h = math.log(self.n_eff)
@@ -120,6 +129,7 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
         floor = spectral.noise_floor_psd(ya, rc.sr, frame_len=rc.frame_len, nfft=rc.nfft)
         yw = spectral.prewhiten(ya, spectral.whitening_filter(floor))
     an = Analyzer.build(rc)
+    noise_var = (np.max(np.abs(yw)) * 10.0 ** (-NOISE_FLOOR_DB / 20.0)) ** 2
     K = cfg.n_candidates
     cand_lf = np.empty((n_frames, K))
     cand_ev = np.empty((n_frames, K))
@@ -127,7 +137,7 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
     for b0 in range(0, n_frames, BLOCK_FRAMES):
         nb = min(BLOCK_FRAMES, n_frames - b0)
         starts = spectral.frame_starts(np.arange(b0, b0 + nb), rc.hop, rc.frame_len)
-        lf, ev, order, _ = an.candidates(yw, starts)
+        lf, ev, order, _ = an.candidates(yw, starts, noise_var=noise_var)
         cand_lf[b0:b0 + nb] = lf
         cand_ev[b0:b0 + nb] = ev
         cand_order[b0:b0 + nb] = order

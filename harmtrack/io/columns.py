@@ -77,8 +77,13 @@ def column_units(n_harmonics: int) -> dict[str, str]:
 
 def columns_markdown() -> str:
     """The column table as Markdown (the text the documentation shows)."""
-    lines = ["| column | unit | meaning |", "|---|---|---|"]
-    lines += [f"| `{name}` | {unit} | {meaning} |" for name, unit, meaning in COLUMNS]
+    lines = ["| column | unit | CSV format | meaning |", "|---|---|---|---|"]
+    for name, unit, meaning in COLUMNS:
+        if name == "amp_h<k>":
+            shown, fmt = "`amp_h1` .. `amp_hH`", CSV_FORMATS["amp"]
+        else:
+            shown, fmt = f"`{name}`", CSV_FORMATS[name]
+        lines.append(f"| {shown} | {unit} | `{fmt}` | {meaning} |")
     return "\n".join(lines)
 
 

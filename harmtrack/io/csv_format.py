@@ -114,7 +114,9 @@ def _parse_provenance(text: str, name: str, line_no: int) -> dict:
     try:
         record = json.loads(text)
     except json.JSONDecodeError as exc:
-        raise HarmtrackError(f"{name}: line {line_no}: provenance is not valid JSON ({exc.msg})") from None
+        raise HarmtrackError(
+            f"{name}: line {line_no}: provenance is not valid JSON ({exc.msg})"
+        ) from None
     if not isinstance(record, dict):
         raise HarmtrackError(f"{name}: line {line_no}: provenance is not a JSON object")
     return record

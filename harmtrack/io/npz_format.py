@@ -31,7 +31,7 @@ _COMPRESS_LEVEL = 6
 
 def _npy_bytes(arr: np.ndarray) -> bytes:
     buf = io.BytesIO()
-    np.lib.format.write_array(buf, np.ascontiguousarray(arr), allow_pickle=False)
+    np.lib.format.write_array(buf, np.asarray(arr), allow_pickle=False)
     return buf.getvalue()
 
 

@@ -1,0 +1,351 @@
+"""Command-line interface: ``harmtrack track`` and ``harmtrack demo``.
+
+The commands parse options, call the public API, write label files and
+report; they do no signal processing of their own.  Heavy modules are
+imported inside the commands so that ``--help`` and ``--version`` stay quick.
+
+Exit status: 0 on success, 2 for bad input, settings or usage (one line
+``harmtrack: error: ...`` on stderr), 1 for an unexpected failure
+(``harmtrack: internal error: ...``; ``--debug`` adds the traceback).
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import time
+import traceback
+import warnings
+from pathlib import Path
+
+from ._version import __version__
+
+__all__ = ["main", "build_parser"]
+
+PROG = "harmtrack"
+EXIT_OK = 0
+EXIT_INTERNAL = 1
+EXIT_USAGE = 2
+DEMO_NAME = "demo_voice"
+DEFAULT_DEMO_DIR = "harmtrack_demo"
+
+
+# ---------------------------------------------------------------------------
+# argument parsing
+# ---------------------------------------------------------------------------
+
+
+_DEBUG_HELP = "show the full traceback of any error"
+
+
+def _common_options() -> argparse.ArgumentParser:
+    """Options every subcommand accepts.
+
+    Their defaults are suppressed so that a value given before the command
+    name (``harmtrack --debug track ...``) is not reset by the subcommand.
+    """
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
+                        help=_DEBUG_HELP)
+    return common
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``harmtrack`` command."""
+    common = _common_options()
+    parser = argparse.ArgumentParser(
+        prog=PROG,
+        description="Track the fundamental frequency (f0), voicing and harmonic amplitudes "
+                    "of harmonic sounds, frame by frame.",
+    )
+    parser.add_argument("--debug", action="store_true", help=_DEBUG_HELP)
+    parser.set_defaults(func=None)
+    parser.add_argument("--version", action="version", version=f"{PROG} {__version__}")
+    sub = parser.add_subparsers(title="commands", metavar="COMMAND")
+
+    p = sub.add_parser(
+        "track", parents=[common], help="track one audio file and write its labels",
+        description="Track one audio file and write one row per frame (time, f0, voicing, "
+                    "harmonic amplitudes...) to a label file.",
+    )
+    p.add_argument("input", metavar="IN", help="audio file (WAV, FLAC, OGG...)")
+    p.add_argument("-o", "--output", metavar="OUT", required=True,
+                   help="label file to write; format from its extension: .csv, .npz or .json")
+    p.add_argument("--preset", default="voice", metavar="NAME",
+                   help="settings preset: voice (speech, 50-800 Hz) or singing (60-1600 Hz); "
+                        "default: voice")
+    p.add_argument("--fmin", type=float, metavar="HZ", help="lowest f0 searched, Hz")
+    p.add_argument("--fmax", type=float, metavar="HZ", help="highest f0 searched, Hz")
+    p.add_argument("--hop", type=float, metavar="S", help="frame hop, seconds (default 0.01)")
+    p.add_argument("--frame", type=float, metavar="S",
+                   help="analysis frame length, seconds (default: from fmin)")
+    p.add_argument("--max-harmonics", type=int, metavar="N",
+                   help="largest number of harmonics fitted (amplitude columns)")
+    p.add_argument("--smoothing", type=float, metavar="X",
+                   help="strength of the pitch-continuity prior, 0 to 20")
+    p.add_argument("--no-prewhiten", action="store_true",
+                   help="do not flatten the long-term noise spectrum before the fit")
+    p.add_argument("--format", metavar="FMT", dest="fmt",
+                   help="label format csv, npz or json (overrides the extension)")
+    p.add_argument("-q", "--quiet", action="store_true", help="print no summary")
+    p.set_defaults(func=cmd_track)
+
+    d = sub.add_parser(
+        "demo", parents=[common], help="track the bundled demo recording and score it",
+        description="Track the bundled demo recording, write its labels to OUTDIR and "
+                    "compare them with the known true f0.",
+    )
+    d.add_argument("-o", "--output-dir", metavar="OUTDIR", default=DEFAULT_DEMO_DIR,
+                   help="folder for the results, created if missing "
+                        f"(default: ./{DEFAULT_DEMO_DIR})")
+    d.set_defaults(func=cmd_demo)
+    return parser
+
+
+# ---------------------------------------------------------------------------
+# reporting
+# ---------------------------------------------------------------------------
+
+
+def _first_line(text) -> str:
+    lines = str(text).strip().splitlines()
+    return lines[0] if lines else ""
+
+
+def _error_text(exc: BaseException) -> str:
+    """One-line description of an expected error (naming the file for OS errors)."""
+    if isinstance(exc, OSError) and not _is_harmtrack_error(exc):
+        what = exc.strerror or _first_line(exc) or type(exc).__name__
+        return f"{exc.filename}: {what}" if exc.filename else what
+    return _first_line(exc)
+
+
+def _is_harmtrack_error(exc: BaseException) -> bool:
+    from .errors import HarmtrackError
+
+    return isinstance(exc, HarmtrackError)
+
+
+def _fmt_seconds(s: float) -> str:
+    return f"{s:.3f} s" if s < 10 else f"{s:.1f} s"
+
+
+def format_summary(track, *, source: str, output: str, fmt: str, seconds: float) -> str:
+    """Human-readable summary of a finished run (several lines, no trailing newline)."""
+    import numpy as np
+
+    info = track.settings.get("input") or {}
+    n_frames = len(track)
+    if info.get("frames"):
+        duration = info["frames"] / track.sr
+    else:
+        duration = float(track.times[-1]) if n_frames else 0.0
+    channels = info.get("channels")
+    ch = f", {channels} channel{'s' if channels != 1 else ''}" if channels else ""
+    voiced = np.asarray(track.voiced, dtype=bool)
+    share = 100.0 * voiced.mean() if n_frames else 0.0
+    f0 = np.asarray(track.f0_hz)[voiced]
+    if f0.size:
+        f0_line = f"median {np.median(f0):.1f} Hz, range {f0.min():.1f} to {f0.max():.1f} Hz"
+    else:
+        f0_line = "no voiced frames"
+    rows = [
+        ("file", source),
+        ("duration", f"{duration:.3f} s at {track.sr:g} Hz{ch}"),
+        ("frames", f"{n_frames} every {track.hop_s * 1000:g} ms, {share:.1f} % voiced"),
+        ("f0", f0_line),
+        ("took", _fmt_seconds(seconds)),
+        ("output", f"{output} ({fmt})"),
+    ]
+    return "\n".join(f"{k:<10}{v}" for k, v in rows)
+
+
+def format_scores(scores: dict) -> str:
+    """The demo's scores against the true f0 (several lines)."""
+    def pct(x):
+        return "n/a" if x != x else f"{100.0 * x:.1f} %"
+
+    rows = [
+        ("raw pitch accuracy", pct(scores["raw_pitch_accuracy"])),
+        ("gross pitch error", pct(scores["gross_pitch_error"])),
+        ("voicing decision error", pct(scores["voicing_decision_error"])),
+    ]
+    return "\n".join(f"{k:<24}{v}" for k, v in rows)
+
+
+# ---------------------------------------------------------------------------
+# commands
+# ---------------------------------------------------------------------------
+
+
+def _track_options(args) -> dict:
+    """Keyword options of :func:`harmtrack.track_file` from the parsed arguments."""
+    return dict(
+        preset=args.preset, fmin=args.fmin, fmax=args.fmax, hop_s=args.hop,
+        frame_s=args.frame, max_harmonics=args.max_harmonics, smoothing=args.smoothing,
+        prewhiten=False if args.no_prewhiten else None,
+    )
+
+
+def _naming(exc, path: str):
+    """``exc`` with ``path`` in its message when it does not name a file yet."""
+    from .errors import HarmtrackError
+
+    msg = _first_line(exc)
+    if path in msg:
+        return exc
+    return HarmtrackError(f"{path}: {msg}")
+
+
+def cmd_track(args) -> int:
+    """``harmtrack track IN -o OUT``."""
+    from . import api
+    from .errors import HarmtrackError
+    from .io import labels
+    from .io.atomic import check_destination
+
+    source = args.input
+    fmt = labels.resolve_format(args.output, args.fmt)
+    check_destination(args.output)
+    _refuse_overwriting_input(source, args.output)
+    start = time.perf_counter()
+    try:
+        tr = api.track_file(source, **_track_options(args))
+    except HarmtrackError as exc:
+        raise _naming(exc, source) from None
+    seconds = time.perf_counter() - start
+    out = labels.write_labels(tr, args.output, fmt=fmt)
+    if not args.quiet:
+        print(format_summary(tr, source=source, output=os.fspath(out), fmt=fmt, seconds=seconds))
+    return EXIT_OK
+
+
+def _refuse_overwriting_input(source: str, output: str) -> None:
+    from .errors import HarmtrackError
+
+    try:
+        same = os.path.samefile(source, output)
+    except OSError:
+        return
+    if same:
+        raise HarmtrackError(f"{output}: output would overwrite the input audio file")
+
+
+def _bundled_demo_dir() -> Path:
+    """``audio_demo`` next to the package (present in a source checkout)."""
+    import harmtrack
+
+    return Path(harmtrack.__file__).resolve().parents[1] / "audio_demo"
+
+
+def _demo_material(outdir: Path):
+    """The demo recording, its true f0 and whether it had to be regenerated.
+
+    Uses the bundled files when present; otherwise regenerates the recording
+    into ``outdir`` from the demo scenario.
+
+    Returns
+    -------
+    wav : pathlib.Path
+    truth : (ndarray, ndarray)
+        True frame times (s) and f0 (Hz, NaN unvoiced).
+    regenerated : bool
+    """
+    from .io import read_reference
+
+    bundled = _bundled_demo_dir()
+    wav, truth = bundled / f"{DEMO_NAME}.wav", bundled / f"{DEMO_NAME}_truth.csv"
+    if wav.is_file() and truth.is_file():
+        return wav, read_reference(truth), False
+    from . import synth
+
+    y, sr, times, f0 = synth.demo_voice()
+    wav = synth.write_wav(outdir / f"{DEMO_NAME}.wav", y, sr)
+    return wav, (times, f0), True
+
+
+def cmd_demo(args) -> int:
+    """``harmtrack demo [-o OUTDIR]``."""
+    from . import api, metrics
+    from .io import labels
+
+    outdir = Path(args.output_dir)
+    outdir.mkdir(parents=True, exist_ok=True)
+    wav, (ref_times, ref_f0), regenerated = _demo_material(outdir)
+    if regenerated:
+        print(f"demo recording regenerated as {wav}")
+    start = time.perf_counter()
+    tr = api.track_file(wav, preset="voice")
+    seconds = time.perf_counter() - start
+    out = labels.write_labels(tr, outdir / f"{DEMO_NAME}.csv")
+    scores = metrics.compare(ref_times, ref_f0, tr.times, tr.f0_hz)
+    print(format_summary(tr, source=os.fspath(wav), output=os.fspath(out), fmt="csv",
+                         seconds=seconds))
+    print(format_scores(scores))
+    return EXIT_OK
+
+
+# ---------------------------------------------------------------------------
+# entry point
+# ---------------------------------------------------------------------------
+
+
+def _warning_printer(original):
+    """A ``warnings.showwarning`` printing harmtrack warnings as one line each."""
+    from .errors import HarmtrackWarning
+
+    seen: set[str] = set()
+
+    def show(message, category, filename, lineno, file=None, line=None):
+        if not issubclass(category, HarmtrackWarning):
+            return original(message, category, filename, lineno, file, line)
+        text = _first_line(message)
+        if text not in seen:
+            seen.add(text)
+            print(f"{PROG}: warning: {text}", file=sys.stderr)
+
+    return show
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the ``harmtrack`` command.
+
+    Parameters
+    ----------
+    argv : list of str, optional
+        Arguments without the program name; ``sys.argv[1:]`` by default.
+
+    Returns
+    -------
+    int
+        Exit status: 0 success, 1 internal error, 2 bad input, settings or usage.
+    """
+    parser = build_parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # --help, --version and usage errors
+        return exc.code if isinstance(exc.code, int) else EXIT_USAGE
+    if args.func is None:
+        parser.print_usage(sys.stderr)
+        print(f"{PROG}: error: a command is required (track or demo)", file=sys.stderr)
+        return EXIT_USAGE
+    from .errors import HarmtrackWarning
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("always", HarmtrackWarning)
+        warnings.showwarning = _warning_printer(warnings.showwarning)
+        try:
+            return args.func(args)
+        except KeyboardInterrupt:
+            print(f"{PROG}: interrupted", file=sys.stderr)
+            return 130
+        except Exception as exc:  # noqa: BLE001 - the command line reports every failure
+            if args.debug:
+                traceback.print_exc()
+            if _is_harmtrack_error(exc) or isinstance(exc, OSError):
+                print(f"{PROG}: error: {_error_text(exc)}", file=sys.stderr)
+                return EXIT_USAGE
+            print(f"{PROG}: internal error: {type(exc).__name__}: {_first_line(exc)} "
+                  "(rerun with --debug for the traceback)", file=sys.stderr)
+            return EXIT_INTERNAL
