@@ -44,69 +44,132 @@ import math
 import numpy as np
 from numba import njit
 
+#: Smallest model order used while refining f0 (fewer where the band holds fewer
+#: harmonics).  Harmonics too weak to pass the order test one by one still carry
+#: information about f0 together; a harmonic that is absent costs a little
+#: variance and no bias.
+MIN_REFINE_ORDER = 8
+
 __all__ = ["projections", "order_energies", "refine_f0", "fit_amplitudes", "select_order",
            "analyse_frame", "analyse_frames", "crlb_f0"]
 
 
 @njit(cache=True, fastmath=True)
-def projections(x, omega, L, c, s):
-    """``c[k] = sum x cos(k w t)``, ``s[k] = sum x sin(k w t)`` for ``k = 0..L``.
+def _centred_dtft(x, theta, re_out, im_out):
+    """``sum_n x[n] exp(-i theta_j t_n)`` for every lane ``j``, ``t`` centred on the frame.
 
-    ``t`` is centred on the frame.  Goertzel recursions for all harmonics run
+    Goertzel recursions for all lanes (any mix of frequencies and harmonics) run
     interleaved in one pass over the samples, two samples per step.
     """
     N = x.shape[0]
+    J = theta.shape[0]
+    coef = np.empty(J)
+    a = np.zeros(J)  # s[n-1]
+    b = np.zeros(J)  # s[n-2]
+    for j in range(J):
+        coef[j] = 2.0 * math.cos(theta[j])
+    n0 = N % 2
+    if n0 == 1:
+        x0 = x[0]
+        for j in range(J):
+            a[j] = x0
+    for n in range(n0, N, 2):
+        x0 = x[n]
+        x1 = x[n + 1]
+        for j in range(J):
+            t0 = x0 + coef[j] * a[j] - b[j]
+            t1 = x1 + coef[j] * t0 - a[j]
+            b[j] = t0
+            a[j] = t1
+    # X(th) = sum x[n] e^{-i th n} = e^{-i th (N-1)} (a - e^{-i th} b); the centred
+    # sum is e^{i th (N-1)/2} X(th) = e^{-i th (N-1)/2} (a - e^{-i th} b).
+    for j in range(J):
+        th = theta[j]
+        re = a[j] - math.cos(th) * b[j]
+        im = math.sin(th) * b[j]
+        ph = -0.5 * th * (N - 1)
+        cp = math.cos(ph)
+        sp = math.sin(ph)
+        re_out[j] = re * cp - im * sp
+        im_out[j] = re * sp + im * cp
+
+
+@njit(cache=True)
+def projections(x, omega, L, c, s):
+    """``c[k] = sum x cos(k w t)``, ``s[k] = sum x sin(k w t)`` for ``k = 0..L``.
+
+    ``t`` is centred on the frame (see :func:`_centred_dtft`).
+    """
     tot = 0.0
-    for n in range(N):
+    for n in range(x.shape[0]):
         tot += x[n]
     c[0] = tot
     s[0] = 0.0
     if L == 0:
         return
-    coef = np.empty(L)
-    a = np.zeros(L)  # s[n-1]
-    b = np.zeros(L)  # s[n-2]
+    theta = np.empty(L)
     for k in range(L):
-        coef[k] = 2.0 * math.cos((k + 1) * omega)
-    n0 = N % 2
-    if n0 == 1:
-        x0 = x[0]
-        for k in range(L):
-            a[k] = x0
-    for n in range(n0, N, 2):
-        x0 = x[n]
-        x1 = x[n + 1]
-        for k in range(L):
-            t0 = x0 + coef[k] * a[k] - b[k]
-            t1 = x1 + coef[k] * t0 - a[k]
-            b[k] = t0
-            a[k] = t1
-    # X(th) = sum x[n] e^{-i th n} = e^{-i th (N-1)} (a - e^{-i th} b); the centred
-    # sum is e^{i th (N-1)/2} X(th) = e^{-i th (N-1)/2} (a - e^{-i th} b).
+        theta[k] = (k + 1) * omega
+    re = np.empty(L)
+    im = np.empty(L)
+    _centred_dtft(x, theta, re, im)
     for k in range(L):
-        th = (k + 1) * omega
-        re = a[k] - math.cos(th) * b[k]
-        im = math.sin(th) * b[k]
-        ph = -0.5 * th * (N - 1)
-        cp = math.cos(ph)
-        sp = math.sin(ph)
-        c[k + 1] = re * cp - im * sp
-        s[k + 1] = -(re * sp + im * cp)
+        c[k + 1] = re[k]
+        s[k + 1] = -im[k]
+
+
+@njit(cache=True)
+def _multi_projections(x, omegas, orders, C, S):
+    """Projections at several frequencies in one pass: row ``m`` of ``C`` / ``S``
+    holds ``k = 0..orders[m]`` at ``omegas[m]``."""
+    M = omegas.shape[0]
+    tot = 0.0
+    for n in range(x.shape[0]):
+        tot += x[n]
+    J = 0
+    for m in range(M):
+        J += orders[m]
+    theta = np.empty(J)
+    j = 0
+    for m in range(M):
+        for k in range(orders[m]):
+            theta[j] = (k + 1) * omegas[m]
+            j += 1
+    re = np.empty(J)
+    im = np.empty(J)
+    _centred_dtft(x, theta, re, im)
+    j = 0
+    for m in range(M):
+        C[m, 0] = tot
+        S[m, 0] = 0.0
+        for k in range(orders[m]):
+            C[m, k + 1] = re[j]
+            S[m, k + 1] = -im[j]
+            j += 1
 
 
 @njit(cache=True)
 def _dirichlet_table(omega, N, J):
-    """``D[j] = sum_t cos(j w t)`` over the centred frame, ``j = 0..J``."""
+    """``D[j] = sum_t cos(j w t)`` over the centred frame, ``j = 0..J``.
+
+    ``D[j] = sin(N j w / 2) / sin(j w / 2)``; numerator and denominator follow
+    the three-term sine recurrence, so the table costs four sines in all.
+    """
     D = np.empty(J + 1)
     D[0] = N
+    h = 0.5 * omega
+    c_den = 2.0 * math.cos(h)
+    c_num = 2.0 * math.cos(N * h)
+    den_prev, den = 0.0, math.sin(h)
+    num_prev, num = 0.0, math.sin(N * h)
     for j in range(1, J + 1):
-        h = 0.5 * j * omega
-        sh = math.sin(h)
-        if abs(sh) < 1e-12:
-            m = round(h / math.pi)
+        if abs(den) < 1e-9:
+            m = round(j * h / math.pi)
             D[j] = N * (1.0 if (m * (N - 1)) % 2 == 0 else -1.0)
         else:
-            D[j] = math.sin(N * h) / sh
+            D[j] = num / den
+        den_prev, den = den, c_den * den - den_prev
+        num_prev, num = num, c_num * num - num_prev
     return D
 
 
@@ -150,10 +213,15 @@ def order_energies(x, omega, L, energies):
     Gram block stayed positive definite (``< L`` when harmonics get too close to
     0 or to the Nyquist frequency for the frame length).
     """
-    N = x.shape[0]
     c = np.empty(L + 1)
     s = np.empty(L + 1)
     projections(x, omega, L, c, s)
+    return _nested_energies(c, s, omega, x.shape[0], L, energies)
+
+
+@njit(cache=True)
+def _nested_energies(c, s, omega, N, L, energies):
+    """:func:`order_energies` from precomputed projections ``c``, ``s`` (k = 0..L)."""
     C = np.zeros((L + 1, L + 1))
     S = np.zeros((max(L, 1), max(L, 1)))
     mask = np.ones(L + 1, dtype=np.bool_)
@@ -174,7 +242,7 @@ def order_energies(x, omega, L, energies):
     return usable
 
 
-@njit(cache=True)
+@njit(cache=True, fastmath=True)
 def _chol_prefix(A, n):
     """Cholesky of the leading block as far as it stays positive; returns that size."""
     for j in range(n):
@@ -193,7 +261,7 @@ def _chol_prefix(A, n):
     return n
 
 
-@njit(cache=True)
+@njit(cache=True, fastmath=True)
 def _forward(G, rhs, n, out, offset):
     """Solve the lower-triangular ``G[:n, :n] y = rhs[offset:offset+n]`` into ``out[offset:]``."""
     for i in range(n):
@@ -229,7 +297,7 @@ def refine_f0(x, omega0, L, rel_step, lmax, energies):
     ``rel_step * omega0``, the second four times finer; the result stays inside
     ``omega0 +- 2 * rel_step * omega0``.  The centre of the second round is
     evaluated for every order up to ``lmax`` into ``energies`` (for the order
-    selection that follows).
+    selection that follows).  Each round is one pass over the samples.
 
     Returns
     -------
@@ -240,21 +308,36 @@ def refine_f0(x, omega0, L, rel_step, lmax, energies):
     omega_sel : float
         Frequency at which ``energies`` was evaluated.
     """
+    N = x.shape[0]
     d = rel_step * omega0
     lo = omega0 - 2.0 * d
     hi = omega0 + 2.0 * d
-    em = _energy_at(x, omega0 - d, L)
-    e0 = _energy_at(x, omega0, L)
-    ep = _energy_at(x, omega0 + d, L)
-    w1 = min(hi, max(lo, _vertex(em, e0, ep, omega0, d)))
+    H = max(L, lmax)
+    C = np.empty((3, H + 1))
+    S = np.empty((3, H + 1))
+    en = np.zeros(L + 1)
+    e3 = np.empty(3)
+    om = np.array([omega0 - d, omega0, omega0 + d])
+    orders = np.array([L, L, L])
+    _multi_projections(x, om, orders, C, S)
+    for m in range(3):
+        u = _nested_energies(C[m], S[m], om[m], N, L, en)
+        e3[m] = en[u]
+    w1 = min(hi, max(lo, _vertex(e3[0], e3[1], e3[2], omega0, d)))
     d *= 0.25
-    usable = order_energies(x, w1, lmax, energies)
-    e0 = energies[min(L, usable)]
-    em = _energy_at(x, w1 - d, L)
-    ep = _energy_at(x, w1 + d, L)
+    om[0] = w1 - d
+    om[1] = w1
+    om[2] = w1 + d
+    orders[1] = lmax
+    _multi_projections(x, om, orders, C, S)
+    usable = _nested_energies(C[1], S[1], w1, N, lmax, energies)
+    for m in (0, 2):
+        u = _nested_energies(C[m], S[m], om[m], N, L, en)
+        e3[m] = en[u]
+    e3[1] = energies[min(L, usable)]
     w = w1
     if usable >= L:
-        w = min(hi, max(lo, _vertex(em, e0, ep, w1, d)))
+        w = min(hi, max(lo, _vertex(e3[0], e3[1], e3[2], w1, d)))
     return w, usable, w1
 
 
@@ -373,7 +456,7 @@ def analyse_frame(x, xa, omega0, order0, lmax, pen_h, pen_f, out_amps):
         Harmonics-to-noise ratio of ``xa`` under the fitted model, dB.
     """
     N = x.shape[0]
-    L0 = min(max(order0, 1), lmax)
+    L0 = min(max(order0, MIN_REFINE_ORDER), lmax)
     en = np.zeros(lmax + 1)
     # first step: about half the width of the order-L0 energy peak
     w, usable, _ = refine_f0(x, omega0, L0, math.pi / (N * omega0 * L0), lmax, en)
@@ -397,21 +480,16 @@ def analyse_frame(x, xa, omega0, order0, lmax, pen_h, pen_f, out_amps):
     if resid < Ra * 1e-12:
         resid = Ra * 1e-12
     sigma2 = resid / N
-    dropped = False
+    harm = ea - amps[0] * amps[0] * N
     for k in range(1, lsel + 1):
-        # log-likelihood gain of harmonic k: (energy of a sinusoid) / (2 sigma^2)
+        # log-likelihood gain of harmonic k, (energy of a sinusoid) / (2 sigma^2),
+        # against its MAP penalty: below it the harmonic is reported absent (0).
+        # The columns are near-orthogonal, so the others need no refit.
         gain = 0.25 * N * amps[k] * amps[k] / sigma2
         if gain < pen_h:
-            keep[k] = False
-            dropped = True
-    if dropped:
-        amps, ea = fit_amplitudes(xa, w, lsel, keep)
-        resid = Ra - ea
-        if resid < Ra * 1e-12:
-            resid = Ra * 1e-12
+            amps[k] = 0.0
     for k in range(out_amps.shape[0]):
         out_amps[k] = amps[k + 1] if k + 1 <= lsel else 0.0
-    harm = ea - amps[0] * amps[0] * N
     if harm < 1e-300:
         harm = 1e-300
     hnr = 10.0 * math.log10(harm / resid)

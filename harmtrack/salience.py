@@ -109,26 +109,37 @@ def harmonic_tables(grid_hz: np.ndarray, *, df: float, band_hz: float,
 
 @njit(cache=True, fastmath=True)
 def _log_spectrum(p, sp_idx, sp_w, n_phase, plog, mlog):
-    """Power and magnitude on the fine log axis, split by sub-step: ``plog[phase, m]``."""
+    """Power and magnitude on the fine log axis, split by sub-step: ``plog[phase, m]``.
+
+    Each fine point holds the largest interpolated power within half a grid
+    step (``n_phase // 2`` fine points) of it.  A harmonic series whose f0 falls
+    between two grid points is then read at its peaks from the nearer one, so
+    the evidence of neighbouring grid points does not swing with the alignment
+    of the true f0 to the grid (which would otherwise let a better-aligned
+    sub-harmonic win on clean input).
+    """
     J = sp_idx.shape[0]
     B = p.shape[0]
+    lin = np.zeros(J)
+    for j in range(J):
+        i = sp_idx[j]
+        if i + 1 < B:
+            lin[j] = max(0.0, p[i - 1] * sp_w[j, 0] + p[i] * sp_w[j, 1] + p[i + 1] * sp_w[j, 2])
+    r = n_phase // 2
     M = (J + n_phase - 1) // n_phase
     for ph in range(n_phase):
         for m in range(M):
             j = m * n_phase + ph
             v = 0.0
-            if j < J:
-                i = sp_idx[j]
-                if i + 1 < B:
-                    v = p[i - 1] * sp_w[j, 0] + p[i] * sp_w[j, 1] + p[i + 1] * sp_w[j, 2]
-            v = max(v, 0.0)
+            for q in range(max(0, j - r), min(J, j + r + 1)):
+                v = max(v, lin[q])
             plog[ph, m] = v
             mlog[ph, m] = math.sqrt(v)
 
 
 @njit(cache=True, fastmath=True)
 def _frame_evidence(p, r_tot, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n_phase,
-                    norm, n_eff, pen_h, pen_f, floor_rel, plog, mlog, ev, sal):
+                    norm, n_eff, pen_h, pen_f, floor_rel, mismatch, plog, mlog, ev, sal):
     """Evidence and compressed salience of one frame on the whole grid (module notes).
 
     Leaves the frame's log-frequency spectrum in ``plog`` / ``mlog`` for
@@ -153,14 +164,14 @@ def _frame_evidence(p, r_tot, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n
             ek = acc[g] + pr[g]
             acc[g] = ek
             comp[g] += mr[g]
-            low[g] = min(low[g], max(r_tot - ek * norm, floor_abs) * qk)
+            low[g] = min(low[g], (max(r_tot - ek * norm, floor_abs) + mismatch * ek * norm) * qk)
     for g in range(G):
         ev[g] = c0 - (half * math.log(low[g]) + pen_f)
         sal[g] = comp[g] / mag_ref
 
 
 @njit(cache=True)
-def _best_order(g, r_tot, plog, h_phase, h_shift, gend, norm, n_eff, pen_h, floor_rel):
+def _best_order(g, r_tot, plog, h_phase, h_shift, gend, norm, n_eff, pen_h, floor_rel, mismatch):
     """Model order that minimises the penalised cost at grid point ``g``."""
     q = math.exp(2.0 * pen_h / n_eff)
     floor_abs = r_tot * floor_rel
@@ -173,7 +184,7 @@ def _best_order(g, r_tot, plog, h_phase, h_shift, gend, norm, n_eff, pen_h, floo
             break
         qk *= q
         e += plog[h_phase[k], g + h_shift[k]]
-        res = max(r_tot - e * norm, floor_abs) * qk
+        res = (max(r_tot - e * norm, floor_abs) + mismatch * e * norm) * qk
         if res < best:
             best = res
             best_l = k + 1
@@ -202,7 +213,7 @@ def _scratch(n_phase, J):
 
 @njit(cache=True)
 def pick_candidates(P, R, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, log2_grid,
-                    norm, n_eff, pen_h, pen_f, floor_rel, K):
+                    norm, n_eff, pen_h, pen_f, floor_rel, mismatch, K):
     """Top-``K`` f0 candidates of every frame from the harmonic evidence.
 
     Parameters
@@ -249,7 +260,7 @@ def pick_candidates(P, R, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n_pha
         if not (R[t] > 0.0):
             continue
         _frame_evidence(P[t], R[t], mag_ref[t], tab_idx, tab_w, h_phase, h_shift, gend, n_phase,
-                        norm, n_eff, pen_h, pen_f, floor_rel, plog, mlog, ev, sal)
+                        norm, n_eff, pen_h, pen_f, floor_rel, mismatch, plog, mlog, ev, sal)
         # Local maxima of the evidence, strongest first (insertion into a short list).
         n_found = 0
         for g in range(G):
@@ -298,13 +309,13 @@ def pick_candidates(P, R, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n_pha
         for j in range(K):
             if not math.isnan(cand_f[t, j]):
                 cand_o[t, j] = _best_order(cand_o[t, j], R[t], plog, h_phase, h_shift, gend, norm,
-                                           n_eff, pen_h, floor_rel)
+                                           n_eff, pen_h, floor_rel, mismatch)
     return cand_f, cand_ev, cand_o, best_ev
 
 
 @njit(cache=True)
 def evidence_map(P, R, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, G, norm, n_eff,
-                 pen_h, pen_f, floor_rel):
+                 pen_h, pen_f, floor_rel, mismatch):
     """Full (T, G) evidence, order and compressed-salience maps (for figures and tests)."""
     T = P.shape[0]
     ev = np.full((T, G), -np.inf)
@@ -314,9 +325,9 @@ def evidence_map(P, R, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n_phase,
     for t in range(T):
         if R[t] > 0.0:
             _frame_evidence(P[t], R[t], mag_ref[t], tab_idx, tab_w, h_phase, h_shift, gend,
-                            n_phase, norm, n_eff, pen_h, pen_f, floor_rel, plog, mlog,
-                            ev[t], sal[t])
+                            n_phase, norm, n_eff, pen_h, pen_f, floor_rel, mismatch, plog,
+                            mlog, ev[t], sal[t])
             for g in range(G):
                 order[t, g] = _best_order(g, R[t], plog, h_phase, h_shift, gend, norm, n_eff,
-                                          pen_h, floor_rel)
+                                          pen_h, floor_rel, mismatch)
     return ev, order, sal

@@ -209,7 +209,7 @@ def power_spectra(fr: np.ndarray, window: np.ndarray, nfft: int) -> np.ndarray:
 def noise_floor_psd(
     y: np.ndarray, sr: float, *, frame_len: int, nfft: int, max_frames: int = 400,
     time_quantile: float = 0.2, smooth_hz: float = 400.0,
-) -> np.ndarray:
+) -> tuple[np.ndarray, np.ndarray]:
     """Smoothed long-term noise floor of ``y``: a low quantile over time and frequency.
 
     Frames are Hann-windowed, half-overlapped; at most ``max_frames`` evenly spaced
@@ -220,21 +220,27 @@ def noise_floor_psd(
 
     Returns
     -------
-    ndarray, shape (nfft // 2 + 1,)
+    floor : ndarray, shape (nfft // 2 + 1,)
         Power per bin, same scaling as :func:`power_spectra` with a Hann window.
+    loud : ndarray, shape (nfft // 2 + 1,)
+        Mean power spectrum of the loudest fifth of the frames, same scaling:
+        the level the floor is to be compared with.
     """
     hop = frame_len // 2
     n_avail = max(1, 1 + (y.size - frame_len) // hop)
     pick = np.unique(np.linspace(0, n_avail - 1, min(n_avail, max_frames)).round().astype(np.int64))
     fr = frames(y, pick * hop, frame_len)
     ps = power_spectra(fr, analysis_window(frame_len), nfft)
+    tot = ps.sum(axis=1)
+    loud = ps[tot >= np.quantile(tot, 0.8)].mean(axis=0)
     floor = np.quantile(ps, time_quantile, axis=0)
     width = max(3, int(round(smooth_hz / (sr / nfft))) | 1)
-    from scipy.ndimage import percentile_filter, uniform_filter1d
-
-    floor = percentile_filter(floor, 100 * time_quantile, size=width, mode="nearest")
-    floor = uniform_filter1d(floor, width, mode="nearest")
-    return floor
+    half = width // 2
+    padded = np.pad(floor, half, mode="edge")
+    windows = np.lib.stride_tricks.sliding_window_view(padded, width)
+    floor = np.quantile(windows, time_quantile, axis=1)
+    csum = np.cumsum(np.pad(floor, (half + 1, half), mode="edge"))
+    return (csum[width:] - csum[:-width]) / width, loud
 
 
 def whitening_filter(floor: np.ndarray, *, n_taps: int = 129, max_gain_db: float = 30.0) -> np.ndarray:
@@ -269,7 +275,7 @@ def whitening_filter(floor: np.ndarray, *, n_taps: int = 129, max_gain_db: float
     return h * taper
 
 
-def prewhiten(y: np.ndarray, h: np.ndarray, *, block: int = 1 << 16) -> np.ndarray:
+def prewhiten(y: np.ndarray, h: np.ndarray, *, block: int = 1 << 12) -> np.ndarray:
     """Filter ``y`` with the zero-phase FIR ``h`` (output aligned with the input).
 
     FFT overlap-add in blocks of ``block`` samples, so memory stays bounded.

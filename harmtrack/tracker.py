@@ -27,7 +27,17 @@ EVIDENCE_OFFSET = 0.0
 
 #: Residual floor of the approximate fit, relative to the frame energy (-20 dB):
 #: the model is never trusted to explain more than that.
-RESIDUAL_FLOOR = 10 ** -2.0
+RESIDUAL_FLOOR = 10 ** -3.0
+
+#: Share of the energy a harmonic model explains that is nevertheless counted as
+#: unexplained: the approximate fit's own error (window leakage, pitch movement
+#: within the frame) grows with the signal, so at a high SNR a sub-harmonic comb
+#: must not gain evidence by soaking up that error.
+MISMATCH = 0.01
+
+#: The prewhitening filter flattens the long-term noise floor plus the loud
+#: frames' spectrum this many dB down: noise well below the signal is ignored.
+PREWHITEN_SNR_DB = 60.0
 
 #: Level of the noise every frame is assumed to hold at least, in dB below the
 #: signal's peak: digital silence and filter leakage then count as noise, not as a
@@ -75,7 +85,7 @@ class Analyzer:
         pen_h = math.log(self.n_eff)
         return salience.pick_candidates(
             P, R, mag_ref, *self.kernel_tables, self.log2_grid, self.norm,
-            self.n_eff, pen_h, 1.5 * pen_h, RESIDUAL_FLOOR, self.rc.cfg.n_candidates,
+            self.n_eff, pen_h, 1.5 * pen_h, RESIDUAL_FLOOR, MISMATCH, self.rc.cfg.n_candidates,
         )
 
 
@@ -126,7 +136,11 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
         )
     yw = ya
     if cfg.prewhiten:
-        floor = spectral.noise_floor_psd(ya, rc.sr, frame_len=rc.frame_len, nfft=rc.nfft)
+        floor, loud = spectral.noise_floor_psd(ya, rc.sr, frame_len=rc.frame_len, nfft=rc.nfft)
+        # Flatten the noise where it matters and the signal's long-term colour
+        # elsewhere: a noise floor far below the signal (a clean recording's
+        # pauses) then cannot reshape the voice.
+        floor = floor + loud * 10.0 ** (-PREWHITEN_SNR_DB / 10.0)
         yw = spectral.prewhiten(ya, spectral.whitening_filter(floor))
     an = Analyzer.build(rc)
     noise_var = (np.max(np.abs(yw)) * 10.0 ** (-NOISE_FLOOR_DB / 20.0)) ** 2
