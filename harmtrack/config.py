@@ -161,8 +161,24 @@ class ResolvedConfig:
 
     @property
     def nfft(self) -> int:
-        """FFT size: at least twice the frame, a power of two."""
-        return 1 << int(math.ceil(math.log2(2 * self.frame_len)))
+        """FFT size: the smallest 5-smooth (fast) length of at least twice the frame."""
+        return _fast_length(2 * self.frame_len)
+
+
+def _fast_length(n: int) -> int:
+    """Smallest integer >= n whose only prime factors are 2, 3 and 5."""
+    best = 1 << int(math.ceil(math.log2(n)))
+    p5 = 1
+    while p5 < best:
+        p35 = p5
+        while p35 < best:
+            m = p35
+            while m < n:
+                m *= 2
+            best = min(best, m)
+            p35 *= 3
+        p5 *= 5
+    return best
 
 
 PRESETS: dict[str, dict] = {

@@ -50,8 +50,14 @@ from numba import njit
 #: variance and no bias.
 MIN_REFINE_ORDER = 8
 
-__all__ = ["projections", "order_energies", "refine_f0", "fit_amplitudes", "select_order",
-           "analyse_frame", "analyse_frames", "crlb_f0"]
+#: Largest model order used while refining f0.  The harmonics above it add
+#: little precision (a few per cent of the Fisher information for a voice's
+#: falling spectrum) at a cost linear in the order; the order selection and the
+#: amplitudes still use every harmonic in the band.
+MAX_REFINE_ORDER = 15
+
+__all__ = ["projections", "order_energies", "refine_f0", "select_order", "analyse_frame",
+           "analyse_frames", "crlb_f0"]
 
 
 @njit(cache=True, fastmath=True)
@@ -224,14 +230,26 @@ def _nested_energies(c, s, omega, N, L, energies):
     """:func:`order_energies` from precomputed projections ``c``, ``s`` (k = 0..L)."""
     C = np.zeros((L + 1, L + 1))
     S = np.zeros((max(L, 1), max(L, 1)))
+    u = np.zeros(L + 1)
+    v = np.zeros(L + 1)
+    return _nested_fit(c, s, omega, N, L, energies, C, S, u, v)
+
+
+@njit(cache=True)
+def _nested_fit(c, s, omega, N, L, energies, C, S, u, v):
+    """Nested least squares for every order ``0..L``, keeping the factors.
+
+    On return ``C`` and ``S`` hold the lower Cholesky factors of the cosine and
+    sine Gram blocks, and ``u`` (k = 0..L) and ``v`` (k = 1..L) the forward-solved
+    projections, from which :func:`_amplitudes` gets the amplitudes of any order.
+    Returns the highest usable order.
+    """
     mask = np.ones(L + 1, dtype=np.bool_)
     _gram(omega, N, L, C, S, mask)
     # nested forward substitution; stop at the first failing pivot
     okc = _chol_prefix(C, L + 1)
     oks = _chol_prefix(S, L) if L > 0 else 0
     usable = min(okc - 1, oks)
-    u = np.zeros(L + 1)
-    v = np.zeros(L + 1)
     _forward(C, c, okc, u, 0)
     _forward(S, s, oks, v, 1)
     e = u[0] * u[0]
@@ -240,6 +258,31 @@ def _nested_energies(c, s, omega, N, L, energies):
         e += u[k] * u[k] + v[k] * v[k]
         energies[k] = e
     return usable
+
+
+@njit(cache=True)
+def _amplitudes(C, S, u, v, L, amps):
+    """Amplitudes of the order-``L`` model from :func:`_nested_fit`'s factors.
+
+    Back substitution ``G^T a = u`` on the leading blocks (the leading block of a
+    Cholesky factor is the factor of the leading block).  ``amps[0]`` receives the
+    mean, ``amps[k]`` the amplitude ``sqrt(a_k^2 + b_k^2)`` of harmonic ``k``.
+    """
+    ac = np.empty(L + 1)
+    for i in range(L, -1, -1):
+        val = u[i]
+        for k in range(i + 1, L + 1):
+            val -= C[k, i] * ac[k]
+        ac[i] = val / C[i, i]
+    bs = np.empty(L + 1)
+    for i in range(L - 1, -1, -1):
+        val = v[i + 1]
+        for k in range(i + 1, L):
+            val -= S[k, i] * bs[k + 1]
+        bs[i + 1] = val / S[i, i]
+    amps[0] = ac[0]
+    for k in range(1, L + 1):
+        amps[k] = math.sqrt(ac[k] * ac[k] + bs[k] * bs[k])
 
 
 @njit(cache=True, fastmath=True)
@@ -272,13 +315,6 @@ def _forward(G, rhs, n, out, offset):
 
 
 @njit(cache=True)
-def _energy_at(x, omega, L):
-    en = np.zeros(L + 1)
-    usable = order_energies(x, omega, L, en)
-    return en[usable]
-
-
-@njit(cache=True)
 def _vertex(em, e0, ep, w, d):
     """Abscissa of the parabola through (w-d, em), (w, e0), (w+d, ep), within 1.5 d of w."""
     den = em - 2.0 * e0 + ep
@@ -290,14 +326,15 @@ def _vertex(em, e0, ep, w, d):
 
 
 @njit(cache=True)
-def refine_f0(x, omega0, L, rel_step, lmax, energies):
+def refine_f0(x, omega0, L, rel_step, lmax, energies, C, S, u, v):
     """Maximise the explained energy of order ``L`` near ``omega0``.
 
-    Two rounds of three-point parabolic interpolation, the first with a step of
-    ``rel_step * omega0``, the second four times finer; the result stays inside
-    ``omega0 +- 2 * rel_step * omega0``.  The centre of the second round is
-    evaluated for every order up to ``lmax`` into ``energies`` (for the order
-    selection that follows).  Each round is one pass over the samples.
+    Three-point parabolic interpolation with a step of ``rel_step * omega0``:
+    one pass over the samples evaluates both side points at order ``L`` and the
+    centre at every order up to ``lmax`` (:func:`_nested_fit` into ``energies``,
+    ``C``, ``S``, ``u``, ``v``, for the order selection and the amplitudes that
+    follow).  A vertex more than 1.5 steps away moves the centre there and
+    repeats, at most three times.
 
     Returns
     -------
@@ -305,101 +342,33 @@ def refine_f0(x, omega0, L, rel_step, lmax, energies):
         Refined f0, radians per sample.
     usable : int
         Highest order with a valid entry in ``energies``.
-    omega_sel : float
-        Frequency at which ``energies`` was evaluated.
     """
     N = x.shape[0]
     d = rel_step * omega0
-    lo = omega0 - 2.0 * d
-    hi = omega0 + 2.0 * d
     H = max(L, lmax)
-    C = np.empty((3, H + 1))
-    S = np.empty((3, H + 1))
+    PC = np.empty((3, H + 1))
+    PS = np.empty((3, H + 1))
     en = np.zeros(L + 1)
-    e3 = np.empty(3)
-    om = np.array([omega0 - d, omega0, omega0 + d])
-    orders = np.array([L, L, L])
-    _multi_projections(x, om, orders, C, S)
-    for m in range(3):
-        u = _nested_energies(C[m], S[m], om[m], N, L, en)
-        e3[m] = en[u]
-    w1 = min(hi, max(lo, _vertex(e3[0], e3[1], e3[2], omega0, d)))
-    d *= 0.25
-    om[0] = w1 - d
-    om[1] = w1
-    om[2] = w1 + d
-    orders[1] = lmax
-    _multi_projections(x, om, orders, C, S)
-    usable = _nested_energies(C[1], S[1], w1, N, lmax, energies)
-    for m in (0, 2):
-        u = _nested_energies(C[m], S[m], om[m], N, L, en)
-        e3[m] = en[u]
-    e3[1] = energies[min(L, usable)]
-    w = w1
-    if usable >= L:
-        w = min(hi, max(lo, _vertex(e3[0], e3[1], e3[2], w1, d)))
-    return w, usable, w1
-
-
-@njit(cache=True)
-def fit_amplitudes(x, omega, L, keep):
-    """Least-squares amplitudes of the harmonics ``k`` with ``keep[k]`` (k = 1..L).
-
-    Returns
-    -------
-    amps : ndarray, shape (L + 1,)
-        ``amps[0]`` is the mean, ``amps[k]`` the amplitude ``sqrt(a_k^2 + b_k^2)``
-        of harmonic ``k`` (0 where not kept).
-    energy : float
-        Energy explained by the fitted model (mean term included).
-    """
-    N = x.shape[0]
-    c = np.empty(L + 1)
-    s = np.empty(L + 1)
-    projections(x, omega, L, c, s)
-    C = np.zeros((L + 1, L + 1))
-    S = np.zeros((max(L, 1), max(L, 1)))
-    ic, nc, isn, ns = _gram(omega, N, L, C, S, keep)
-    amps = np.zeros(L + 1)
-    cc = np.empty(nc)
-    for a in range(nc):
-        cc[a] = c[ic[a]]
-    sc = np.empty(max(ns, 1))
-    for a in range(ns):
-        sc[a] = s[isn[a]]
-    okc = _chol_prefix(C, nc)
-    oks = _chol_prefix(S, ns) if ns > 0 else 0
-    if okc < nc or oks < ns:
-        return amps, 0.0
-    u = np.empty(nc)
-    _forward(C, cc, nc, u, 0)
-    v = np.empty(max(ns, 1))
-    if ns > 0:
-        _forward(S, sc, ns, v, 0)
-    energy = 0.0
-    for a in range(nc):
-        energy += u[a] * u[a]
-    for a in range(ns):
-        energy += v[a] * v[a]
-    # back substitution G^T a = u
-    ac = np.empty(nc)
-    for i in range(nc - 1, -1, -1):
-        val = u[i]
-        for k in range(i + 1, nc):
-            val -= C[k, i] * ac[k]
-        ac[i] = val / C[i, i]
-    asn = np.empty(max(ns, 1))
-    for i in range(ns - 1, -1, -1):
-        val = v[i]
-        for k in range(i + 1, ns):
-            val -= S[k, i] * asn[k]
-        asn[i] = val / S[i, i]
-    amps[0] = ac[0]
-    # cosine and sine columns share the harmonic list (after the mean term)
-    for a in range(ns):
-        k = isn[a]
-        amps[k] = math.sqrt(ac[a + 1] * ac[a + 1] + asn[a] * asn[a])
-    return amps, energy
+    orders = np.array([L, lmax, L])
+    w = omega0
+    usable = 0
+    for _ in range(3):
+        om = np.array([w - d, w, w + d])
+        _multi_projections(x, om, orders, PC, PS)
+        usable = _nested_fit(PC[1], PS[1], w, N, lmax, energies, C, S, u, v)
+        if usable < L:
+            return w, usable
+        k = _nested_energies(PC[0], PS[0], om[0], N, L, en)
+        em = en[k]
+        k = _nested_energies(PC[2], PS[2], om[2], N, L, en)
+        ep = en[k]
+        den = em - 2.0 * energies[L] + ep
+        if den < 0.0:
+            off = 0.5 * (em - ep) / den
+            if abs(off) <= 1.5:
+                return w + off * d, usable
+        w = w + (1.5 * d if ep > em else -1.5 * d)
+    return w, usable
 
 
 @njit(cache=True)
@@ -425,26 +394,42 @@ def select_order(energies, usable, R, N, pen_h, pen_f):
 
 
 @njit(cache=True)
-def analyse_frame(x, xa, omega0, order0, lmax, pen_h, pen_f, out_amps):
+def _interp_table(table, omega):
+    """Linear interpolation of ``table`` sampled uniformly on [0, pi] at ``omega``."""
+    pos = omega / math.pi * (table.shape[0] - 1)
+    i = int(pos)
+    if i >= table.shape[0] - 1:
+        return table[table.shape[0] - 1]
+    a = pos - i
+    return table[i] * (1.0 - a) + table[i + 1] * a
+
+
+@njit(cache=True)
+def analyse_frame(x, xa, gain, omega0, order0, lmax, pen_h, pen_f, out_amps):
     """Refine f0, choose the order and fit amplitudes for one voiced frame.
 
     Parameters
     ----------
     x : ndarray, shape (N,)
-        Frame the f0 is estimated on (possibly prewhitened).
+        Frame the model is fitted to (possibly prewhitened).
     xa : ndarray, shape (N,)
-        Frame the amplitudes are measured on.
+        The same frame before prewhitening (for the harmonics-to-noise ratio).
+    gain : ndarray, shape (M,)
+        Magnitude response of the prewhitening filter sampled uniformly on
+        [0, pi] rad/sample; the amplitudes fitted on ``x`` are divided by it.
     omega0 : float
         Starting f0, radians per sample.
     order0 : int
-        Model order used while refining f0 (from the search stage).
+        Model order found by the search stage; refinement uses it clipped to
+        ``MIN_REFINE_ORDER .. MAX_REFINE_ORDER``.
     lmax : int
-        Highest order considered by the final order selection.
+        Highest order considered by the order selection.
     pen_h, pen_f : float
         MAP penalties per harmonic and for the frequency (nats).
     out_amps : ndarray, shape (H,)
-        Receives the amplitude of harmonic ``k`` at ``k - 1`` (0 for harmonics
-        above the selected order or dropped by the per-harmonic test).
+        Receives the amplitude of harmonic ``k`` at ``k - 1``: 0 above the
+        selected order and for harmonics whose own evidence is below their
+        penalty (reported absent).
 
     Returns
     -------
@@ -456,48 +441,53 @@ def analyse_frame(x, xa, omega0, order0, lmax, pen_h, pen_f, out_amps):
         Harmonics-to-noise ratio of ``xa`` under the fitted model, dB.
     """
     N = x.shape[0]
-    L0 = min(max(order0, MIN_REFINE_ORDER), lmax)
+    L0 = min(max(order0, MIN_REFINE_ORDER), MAX_REFINE_ORDER, lmax)
     en = np.zeros(lmax + 1)
-    # first step: about half the width of the order-L0 energy peak
-    w, usable, _ = refine_f0(x, omega0, L0, math.pi / (N * omega0 * L0), lmax, en)
+    C = np.zeros((lmax + 1, lmax + 1))
+    S = np.zeros((max(lmax, 1), max(lmax, 1)))
+    u = np.zeros(lmax + 1)
+    v = np.zeros(lmax + 1)
+    # step: a quarter of the width of the order-L0 energy peak, wide enough for the
+    # search stage's error and narrow enough for the peak to be near-quadratic
+    w, usable = refine_f0(x, omega0, L0, 0.35 * math.pi / (N * omega0 * L0), lmax, en, C, S, u, v)
+    w1 = omega0
     R = 0.0
     for n in range(N):
         R += x[n] * x[n]
     lsel, _ = select_order(en, usable, R, N, pen_h, pen_f)
     if lsel == 0:
-        lsel = L0
-    # amplitudes on xa, dropping harmonics whose own evidence is below their penalty
+        lsel = min(L0, usable)
+    for k in range(out_amps.shape[0]):
+        out_amps[k] = 0.0
+    if lsel < 1:
+        return w, 0, np.nan
+    amps = np.zeros(lsel + 1)
+    _amplitudes(C, S, u, v, lsel, amps)
+    sigma2 = max(R - en[lsel], R * 1e-12) / N
     Ra = 0.0
+    ma = 0.0
     for n in range(N):
         Ra += xa[n] * xa[n]
-    if not (Ra > 0.0):
-        for k in range(out_amps.shape[0]):
-            out_amps[k] = 0.0
-        return w, lsel, np.nan
-    keep = np.ones(lsel + 1, dtype=np.bool_)
-    amps, ea = fit_amplitudes(xa, w, lsel, keep)
-    resid = Ra - ea
-    if resid < Ra * 1e-12:
-        resid = Ra * 1e-12
-    sigma2 = resid / N
-    harm = ea - amps[0] * amps[0] * N
+        ma += xa[n]
+    Ra -= ma * ma / N
+    harm = 0.0
     for k in range(1, lsel + 1):
         # log-likelihood gain of harmonic k, (energy of a sinusoid) / (2 sigma^2),
-        # against its MAP penalty: below it the harmonic is reported absent (0).
-        # The columns are near-orthogonal, so the others need no refit.
-        gain = 0.25 * N * amps[k] * amps[k] / sigma2
-        if gain < pen_h:
-            amps[k] = 0.0
-    for k in range(out_amps.shape[0]):
-        out_amps[k] = amps[k + 1] if k + 1 <= lsel else 0.0
-    if harm < 1e-300:
-        harm = 1e-300
-    hnr = 10.0 * math.log10(harm / resid)
-    return w, lsel, hnr
+        # against its MAP penalty: below it the harmonic is reported absent.
+        if 0.25 * N * amps[k] * amps[k] / sigma2 < pen_h:
+            continue
+        a = amps[k] / _interp_table(gain, k * w1)
+        if k <= out_amps.shape[0]:
+            out_amps[k - 1] = a
+        harm += 0.5 * N * a * a
+    if not (Ra > 0.0) or harm <= 0.0:
+        return w, lsel, np.nan
+    resid = max(Ra - harm, Ra * 1e-10)
+    return w, lsel, 10.0 * math.log10(harm / resid)
 
 
 @njit(cache=True)
-def analyse_frames(fw, fa, omega0, order0, band_w, H, pen_h, pen_f):
+def analyse_frames(fw, fa, gain, omega0, order0, band_w, H, pen_h, pen_f):
     """:func:`analyse_frame` over a block of frames.
 
     ``band_w`` is the analysed band edge in radians per sample: harmonics above it
@@ -517,7 +507,7 @@ def analyse_frames(fw, fa, omega0, order0, band_w, H, pen_h, pen_f):
         lmax = min(H, int(band_w / omega0[i]))
         if lmax < 1:
             lmax = 1
-        w, L, h = analyse_frame(fw[i], fa[i], omega0[i], order0[i], lmax, pen_h, pen_f, amps)
+        w, L, h = analyse_frame(fw[i], fa[i], gain, omega0[i], order0[i], lmax, pen_h, pen_f, amps)
         w_out[i] = w
         l_out[i] = L
         h_out[i] = h

@@ -53,7 +53,7 @@ def log_grid(fmin_hz: float, fmax_hz: float, cents: float) -> np.ndarray:
 
 #: Sub-steps of the fine log-frequency axis per grid step: with a 10-cent grid the
 #: harmonics are read within 1.25 cents of their exact frequency.
-FINE_STEPS = 4
+FINE_STEPS = 2
 
 
 class HarmonicTables(NamedTuple):
@@ -120,21 +120,18 @@ def _log_spectrum(p, sp_idx, sp_w, n_phase, plog, mlog):
     """
     J = sp_idx.shape[0]
     B = p.shape[0]
-    lin = np.zeros(J)
+    r = n_phase // 2
+    lin = np.zeros(J + 2 * r)
     for j in range(J):
         i = sp_idx[j]
         if i + 1 < B:
-            lin[j] = max(0.0, p[i - 1] * sp_w[j, 0] + p[i] * sp_w[j, 1] + p[i + 1] * sp_w[j, 2])
-    r = n_phase // 2
-    M = (J + n_phase - 1) // n_phase
-    for ph in range(n_phase):
-        for m in range(M):
-            j = m * n_phase + ph
-            v = 0.0
-            for q in range(max(0, j - r), min(J, j + r + 1)):
-                v = max(v, lin[q])
-            plog[ph, m] = v
-            mlog[ph, m] = math.sqrt(v)
+            lin[j + r] = max(0.0, p[i - 1] * sp_w[j, 0] + p[i] * sp_w[j, 1] + p[i + 1] * sp_w[j, 2])
+    for j in range(J):
+        v = lin[j + r]
+        for q in range(1, r + 1):
+            v = max(v, max(lin[j + r - q], lin[j + r + q]))
+        plog[j % n_phase, j // n_phase] = v
+        mlog[j % n_phase, j // n_phase] = math.sqrt(v)
 
 
 @njit(cache=True, fastmath=True)

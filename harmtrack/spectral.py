@@ -207,7 +207,7 @@ def power_spectra(fr: np.ndarray, window: np.ndarray, nfft: int) -> np.ndarray:
 
 
 def noise_floor_psd(
-    y: np.ndarray, sr: float, *, frame_len: int, nfft: int, max_frames: int = 400,
+    y: np.ndarray, sr: float, *, frame_len: int, nfft: int, max_frames: int = 200,
     time_quantile: float = 0.2, smooth_hz: float = 400.0,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Smoothed long-term noise floor of ``y``: a low quantile over time and frequency.
@@ -229,18 +229,24 @@ def noise_floor_psd(
     hop = frame_len // 2
     n_avail = max(1, 1 + (y.size - frame_len) // hop)
     pick = np.unique(np.linspace(0, n_avail - 1, min(n_avail, max_frames)).round().astype(np.int64))
-    fr = frames(y, pick * hop, frame_len)
-    ps = power_spectra(fr, analysis_window(frame_len), nfft)
+    ps = power_spectra(frames(y, pick * hop, frame_len), analysis_window(frame_len), nfft)
     tot = ps.sum(axis=1)
     loud = ps[tot >= np.quantile(tot, 0.8)].mean(axis=0)
-    floor = np.quantile(ps, time_quantile, axis=0)
+    floor = _low_order_stat(ps, time_quantile, axis=0)
     width = max(3, int(round(smooth_hz / (sr / nfft))) | 1)
     half = width // 2
     padded = np.pad(floor, half, mode="edge")
     windows = np.lib.stride_tricks.sliding_window_view(padded, width)
-    floor = np.quantile(windows, time_quantile, axis=1)
+    floor = _low_order_stat(windows, time_quantile, axis=1)
     csum = np.cumsum(np.pad(floor, (half + 1, half), mode="edge"))
     return (csum[width:] - csum[:-width]) / width, loud
+
+
+def _low_order_stat(a: np.ndarray, q: float, *, axis: int) -> np.ndarray:
+    """The order statistic of rank ``floor(q * (n - 1))`` along ``axis`` (a quantile
+    without interpolation, by partial sorting)."""
+    k = int(q * (a.shape[axis] - 1))
+    return np.take(np.partition(a, k, axis=axis), k, axis=axis)
 
 
 def whitening_filter(floor: np.ndarray, *, n_taps: int = 129, max_gain_db: float = 30.0) -> np.ndarray:

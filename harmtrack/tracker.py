@@ -135,13 +135,16 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
             f"({rc.frame_len / rc.sr * 1000:.1f} ms); use a longer recording or a smaller frame_s"
         )
     yw = ya
+    gain = np.ones(2)
     if cfg.prewhiten:
         floor, loud = spectral.noise_floor_psd(ya, rc.sr, frame_len=rc.frame_len, nfft=rc.nfft)
         # Flatten the noise where it matters and the signal's long-term colour
         # elsewhere: a noise floor far below the signal (a clean recording's
         # pauses) then cannot reshape the voice.
         floor = floor + loud * 10.0 ** (-PREWHITEN_SNR_DB / 10.0)
-        yw = spectral.prewhiten(ya, spectral.whitening_filter(floor))
+        h = spectral.whitening_filter(floor)
+        yw = spectral.prewhiten(ya, h)
+        gain = np.abs(np.fft.rfft(h, 4096))
     an = Analyzer.build(rc)
     noise_var = (np.max(np.abs(yw)) * 10.0 ** (-NOISE_FLOOR_DB / 20.0)) ** 2
     K = cfg.n_candidates
@@ -168,7 +171,7 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
     rows = np.nonzero(voiced)[0]
     f0_init[rows] = 2.0 ** cand_lf[rows, path[rows]]
     order_init[rows] = cand_order[rows, path[rows]]
-    f0, amps, order, hnr = refine_frames(yw, ya, rc, f0_init, order_init)
+    f0, amps, order, hnr = refine_frames(yw, ya, gain, rc, f0_init, order_init)
     times = np.arange(n_frames) * cfg.hop_s
     return Track(
         times=times, f0_hz=f0, voiced=voiced, voicing_prob=np.clip(prob, 0.0, 1.0),
@@ -177,11 +180,14 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
     )
 
 
-def refine_frames(yw: np.ndarray, ya: np.ndarray, rc: ResolvedConfig, f0_init: np.ndarray,
-                  order_init: np.ndarray):
+def refine_frames(yw: np.ndarray, ya: np.ndarray, gain: np.ndarray, rc: ResolvedConfig,
+                  f0_init: np.ndarray, order_init: np.ndarray):
     """NLS refinement and amplitudes at the frames where ``f0_init`` is finite.
 
-    ``order_init`` is the model order the search stage found for each start.
+    ``yw`` is the signal fitted (prewhitened), ``ya`` the signal before
+    prewhitening, ``gain`` the prewhitening filter's magnitude response on
+    [0, pi] rad/sample, ``order_init`` the model order the search stage found for
+    each start.
 
     Returns
     -------
@@ -206,7 +212,7 @@ def refine_frames(yw: np.ndarray, ya: np.ndarray, rc: ResolvedConfig, f0_init: n
         starts = spectral.frame_starts(r, rc.hop, rc.frame_len)
         fw = spectral.frames(yw, starts, rc.frame_len)
         fa = fw if ya is yw else spectral.frames(ya, starts, rc.frame_len)
-        w, L, h, a = nls.analyse_frames(fw, fa, 2.0 * np.pi * f0_init[r] / rc.sr, order_init[r],
+        w, L, h, a = nls.analyse_frames(fw, fa, gain, 2.0 * np.pi * f0_init[r] / rc.sr, order_init[r],
                                         rc.band_hz / rc.sr * 2.0 * np.pi, H, pen_h, 1.5 * pen_h)
         f0[r] = w * rc.sr / (2.0 * np.pi)
         order[r] = L
@@ -253,6 +259,6 @@ def estimate_frame(x, sr: float, *, fmin_hz: float, fmax_hz: float, max_harmonic
     f = 2.0 ** lf[0, 0]
     lmax = max(1, int(min(max_harmonics, rc.band_hz // f)))
     pen_h = math.log(n)
-    w, L, _ = nls.analyse_frame(x, x, 2.0 * np.pi * f / sr, int(order[0, 0]), lmax, pen_h,
-                                1.5 * pen_h, amps)
+    w, L, _ = nls.analyse_frame(x, x, np.ones(2), 2.0 * np.pi * f / sr, int(order[0, 0]), lmax,
+                                pen_h, 1.5 * pen_h, amps)
     return w * sr / (2.0 * np.pi), int(L), amps
