@@ -36,6 +36,10 @@ class TrackerConfig:
     analysis_sr : int
         Input above this rate is resampled to it before analysis (4000 to 96000 Hz);
         input at or below it is analysed at its own rate.
+    search_sr : int or None
+        Rate of the candidate search (4000 to 96000 Hz): the harmonic-summation
+        search runs on a copy decimated to this rate, the NLS refinement and
+        the amplitudes on the full analysis band.  ``None``: the analysis rate.
     band_hz : float or None
         Highest frequency of a harmonic that enters the fit.  ``None`` means 95 %
         of the analysis Nyquist frequency.
@@ -66,6 +70,7 @@ class TrackerConfig:
     hop_s: float = 0.01
     frame_s: float | None = None
     analysis_sr: int = 16000
+    search_sr: int | None = None
     band_hz: float | None = None
     max_harmonics: int = 30
     grid_cents: float = 10.0
@@ -92,6 +97,9 @@ class TrackerConfig:
         if self.frame_s is not None:
             _check_range("frame_s", self.frame_s, 0.01, 1.0)
         _check_range("analysis_sr", self.analysis_sr, 4000, 96000)
+        if self.search_sr is not None:
+            _check_int("search_sr", self.search_sr, 4000, 96000)
+            object.__setattr__(self, "search_sr", int(self.search_sr))
         if self.band_hz is not None:
             _check_range("band_hz", self.band_hz, 100.0, 48000.0)
         _check_int("max_harmonics", self.max_harmonics, 1, 100)
@@ -142,10 +150,13 @@ class TrackerConfig:
                 f"fmin={self.fmin_hz:g} Hz needs frames of at least {1.5 / self.fmin_hz * 1000:.0f} ms; "
                 f"raise fmin or set frame_s >= {1.5 / self.fmin_hz:.3f}"
             )
-        n = int(round(frame_s * asr))
+        return self._at_rate(sr, asr, band)
+
+    def _at_rate(self, sr_in: float, rate: float, band: float) -> "ResolvedConfig":
+        n = int(round(self.auto_frame_s * rate))
         n += n % 2  # even length keeps the frame centre between two samples
-        hop = self.hop_s * asr
-        return ResolvedConfig(cfg=self, sr_in=sr, sr=asr, frame_len=n, hop=hop, band_hz=band)
+        return ResolvedConfig(cfg=self, sr_in=sr_in, sr=rate, frame_len=n, hop=self.hop_s * rate,
+                              band_hz=band)
 
 
 @dataclass(frozen=True)
@@ -158,6 +169,18 @@ class ResolvedConfig:
     frame_len: int
     hop: float
     band_hz: float
+
+    def at_rate(self, rate: float) -> "ResolvedConfig":
+        """The same settings for analysis at another sample rate (band limited to it)."""
+        return self.cfg._at_rate(self.sr_in, float(rate), min(self.band_hz, 0.475 * rate))
+
+    def search(self) -> "ResolvedConfig":
+        """Settings of the candidate search (see ``TrackerConfig.search_sr``)."""
+        rate = self.cfg.search_sr
+        # the search needs at least two harmonics of fmax inside its band
+        if rate is None or rate >= self.sr or 0.475 * rate <= 2.0 * self.cfg.fmax_hz:
+            return self
+        return self.at_rate(rate)
 
     @property
     def nfft(self) -> int:
@@ -183,7 +206,7 @@ def _fast_length(n: int) -> int:
 
 PRESETS: dict[str, dict] = {
     # Speech: 50-800 Hz, 16 kHz analysis, ~50 ms frames.
-    "voice": dict(fmin_hz=50.0, fmax_hz=800.0, analysis_sr=16000, max_harmonics=30,
+    "voice": dict(fmin_hz=50.0, fmax_hz=800.0, analysis_sr=16000, search_sr=8000, max_harmonics=30,
                   smoothing=1.0, glide_oct_s=0.5, voiced_run_s=0.15),
     # Singing: wider and higher range, vibrato and portamento move faster.
     "singing": dict(fmin_hz=60.0, fmax_hz=1600.0, analysis_sr=22050, max_harmonics=30,

@@ -50,6 +50,10 @@ from numba import njit
 #: variance and no bias.
 MIN_REFINE_ORDER = 8
 
+#: The all-order fit stops adding harmonics once the MAP cost is this many nats
+#: above its best (about seven noise-only harmonics past the best order).
+ORDER_STOP_NATS = 40.0
+
 #: Largest model order used while refining f0.  The harmonics above it add
 #: little precision (a few per cent of the Fisher information for a voice's
 #: falling spectrum) at a cost linear in the order; the order selection and the
@@ -232,32 +236,78 @@ def _nested_energies(c, s, omega, N, L, energies):
     S = np.zeros((max(L, 1), max(L, 1)))
     u = np.zeros(L + 1)
     v = np.zeros(L + 1)
-    return _nested_fit(c, s, omega, N, L, energies, C, S, u, v)
+    return _nested_fit(c, s, omega, N, L, energies, C, S, u, v, 1.0, 0.0, np.inf, L)
+
+
+@njit(cache=True, fastmath=True)
+def _chol_row(A, i):
+    """Row ``i`` of the lower Cholesky factor, in place (rows above already done).
+
+    Returns False where the pivot is not safely positive.
+    """
+    for j in range(i):
+        val = A[i, j]
+        for k in range(j):
+            val -= A[i, k] * A[j, k]
+        A[i, j] = val / A[j, j]
+    d = A[i, i]
+    for k in range(i):
+        d -= A[i, k] * A[i, k]
+    if d <= 1e-10 * abs(A[i, i]) or d <= 0.0:
+        return False
+    A[i, i] = math.sqrt(d)
+    return True
 
 
 @njit(cache=True)
-def _nested_fit(c, s, omega, N, L, energies, C, S, u, v):
-    """Nested least squares for every order ``0..L``, keeping the factors.
+def _nested_fit(c, s, omega, N, L, energies, C, S, u, v, R, pen_h, margin, min_order):
+    """Nested least squares for the orders ``0..L``, keeping the factors.
 
-    On return ``C`` and ``S`` hold the lower Cholesky factors of the cosine and
-    sine Gram blocks, and ``u`` (k = 0..L) and ``v`` (k = 1..L) the forward-solved
-    projections, from which :func:`_amplitudes` gets the amplitudes of any order.
-    Returns the highest usable order.
+    The Cholesky factors of the cosine and sine Gram blocks and the
+    forward-solved projections grow one order at a time (row-wise), so order
+    ``l`` costs only what it adds.  Past ``min_order``, the growth stops once
+    the MAP cost ``N/2 ln(R - E_l) + l pen_h`` exceeds its best value so far by
+    ``margin`` nats: the orders above cannot win unless a harmonic far stronger
+    than the several before it appears.
+
+    On return ``C`` and ``S`` hold the factors, ``u`` (k = 0..) and ``v``
+    (k = 1..) the forward-solved projections, from which :func:`_amplitudes`
+    gets the amplitudes of any computed order.  Returns the highest order
+    computed (``energies[0..that]`` are valid).
     """
     mask = np.ones(L + 1, dtype=np.bool_)
     _gram(omega, N, L, C, S, mask)
-    # nested forward substitution; stop at the first failing pivot
-    okc = _chol_prefix(C, L + 1)
-    oks = _chol_prefix(S, L) if L > 0 else 0
-    usable = min(okc - 1, oks)
-    _forward(C, c, okc, u, 0)
-    _forward(S, s, oks, v, 1)
+    if not _chol_row(C, 0):
+        energies[0] = 0.0
+        return 0
+    u[0] = c[0] / C[0, 0]
     e = u[0] * u[0]
     energies[0] = e
-    for k in range(1, usable + 1):
-        e += u[k] * u[k] + v[k] * v[k]
-        energies[k] = e
-    return usable
+    q = math.exp(2.0 * pen_h / N)
+    stop = math.exp(2.0 * margin / N) if margin < 1e6 else np.inf
+    floor = R * 1e-12
+    best = max(R - e, floor)
+    qk = 1.0
+    for l in range(1, L + 1):
+        if not _chol_row(C, l) or not _chol_row(S, l - 1):
+            return l - 1
+        val = c[l]
+        for k in range(l):
+            val -= C[l, k] * u[k]
+        u[l] = val / C[l, l]
+        val = s[l]
+        for k in range(l - 1):
+            val -= S[l - 1, k] * v[k + 1]
+        v[l] = val / S[l - 1, l - 1]
+        e += u[l] * u[l] + v[l] * v[l]
+        energies[l] = e
+        qk *= q
+        crit = max(R - e, floor) * qk
+        if crit < best:
+            best = crit
+        elif l >= min_order and crit > best * stop:
+            return l
+    return L
 
 
 @njit(cache=True)
@@ -285,35 +335,6 @@ def _amplitudes(C, S, u, v, L, amps):
         amps[k] = math.sqrt(ac[k] * ac[k] + bs[k] * bs[k])
 
 
-@njit(cache=True, fastmath=True)
-def _chol_prefix(A, n):
-    """Cholesky of the leading block as far as it stays positive; returns that size."""
-    for j in range(n):
-        d = A[j, j]
-        for k in range(j):
-            d -= A[j, k] * A[j, k]
-        if d <= 1e-10 * abs(A[j, j]) or d <= 0.0:
-            return j
-        d = math.sqrt(d)
-        A[j, j] = d
-        for i in range(j + 1, n):
-            v = A[i, j]
-            for k in range(j):
-                v -= A[i, k] * A[j, k]
-            A[i, j] = v / d
-    return n
-
-
-@njit(cache=True, fastmath=True)
-def _forward(G, rhs, n, out, offset):
-    """Solve the lower-triangular ``G[:n, :n] y = rhs[offset:offset+n]`` into ``out[offset:]``."""
-    for i in range(n):
-        v = rhs[offset + i]
-        for k in range(i):
-            v -= G[i, k] * out[offset + k]
-        out[offset + i] = v / G[i, i]
-
-
 @njit(cache=True)
 def _vertex(em, e0, ep, w, d):
     """Abscissa of the parabola through (w-d, em), (w, e0), (w+d, ep), within 1.5 d of w."""
@@ -326,14 +347,14 @@ def _vertex(em, e0, ep, w, d):
 
 
 @njit(cache=True)
-def refine_f0(x, omega0, L, rel_step, lmax, energies, C, S, u, v):
+def refine_f0(x, omega0, L, rel_step, lmax, energies, C, S, u, v, R, pen_h):
     """Maximise the explained energy of order ``L`` near ``omega0``.
 
     Three-point parabolic interpolation with a step of ``rel_step * omega0``:
     one pass over the samples evaluates both side points at order ``L`` and the
     centre at every order up to ``lmax`` (:func:`_nested_fit` into ``energies``,
     ``C``, ``S``, ``u``, ``v``, for the order selection and the amplitudes that
-    follow).  A vertex more than 1.5 steps away moves the centre there and
+    follow; ``R`` and ``pen_h`` let it stop early, see :data:`ORDER_STOP_NATS`).  A vertex more than 1.5 steps away moves the centre there and
     repeats, at most three times.
 
     Returns
@@ -355,7 +376,8 @@ def refine_f0(x, omega0, L, rel_step, lmax, energies, C, S, u, v):
     for _ in range(3):
         om = np.array([w - d, w, w + d])
         _multi_projections(x, om, orders, PC, PS)
-        usable = _nested_fit(PC[1], PS[1], w, N, lmax, energies, C, S, u, v)
+        usable = _nested_fit(PC[1], PS[1], w, N, lmax, energies, C, S, u, v, R, pen_h,
+                             ORDER_STOP_NATS, L)
         if usable < L:
             return w, usable
         k = _nested_energies(PC[0], PS[0], om[0], N, L, en)
@@ -447,13 +469,13 @@ def analyse_frame(x, xa, gain, omega0, order0, lmax, pen_h, pen_f, out_amps):
     S = np.zeros((max(lmax, 1), max(lmax, 1)))
     u = np.zeros(lmax + 1)
     v = np.zeros(lmax + 1)
-    # step: a quarter of the width of the order-L0 energy peak, wide enough for the
-    # search stage's error and narrow enough for the peak to be near-quadratic
-    w, usable = refine_f0(x, omega0, L0, 0.35 * math.pi / (N * omega0 * L0), lmax, en, C, S, u, v)
-    w1 = omega0
     R = 0.0
     for n in range(N):
         R += x[n] * x[n]
+    # step: about a third of the half-width of the order-L0 energy peak, wide
+    # enough for the search stage's error, narrow enough for a near-quadratic peak
+    w, usable = refine_f0(x, omega0, L0, 0.35 * math.pi / (N * omega0 * L0), lmax, en, C, S, u, v,
+                          R, pen_h)
     lsel, _ = select_order(en, usable, R, N, pen_h, pen_f)
     if lsel == 0:
         lsel = min(L0, usable)
@@ -476,7 +498,7 @@ def analyse_frame(x, xa, gain, omega0, order0, lmax, pen_h, pen_f, out_amps):
         # against its MAP penalty: below it the harmonic is reported absent.
         if 0.25 * N * amps[k] * amps[k] / sigma2 < pen_h:
             continue
-        a = amps[k] / _interp_table(gain, k * w1)
+        a = amps[k] / _interp_table(gain, k * w)
         if k <= out_amps.shape[0]:
             out_amps[k - 1] = a
         harm += 0.5 * N * a * a

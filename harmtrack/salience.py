@@ -121,31 +121,35 @@ def _log_spectrum(p, sp_idx, sp_w, n_phase, plog, mlog):
     J = sp_idx.shape[0]
     B = p.shape[0]
     r = n_phase // 2
-    lin = np.zeros(J + 2 * r)
+    M = plog.shape[1]
+    lin = np.zeros(M * n_phase + 2 * r)
     for j in range(J):
         i = sp_idx[j]
         if i + 1 < B:
             lin[j + r] = max(0.0, p[i - 1] * sp_w[j, 0] + p[i] * sp_w[j, 1] + p[i + 1] * sp_w[j, 2])
-    for j in range(J):
-        v = lin[j + r]
-        for q in range(1, r + 1):
-            v = max(v, max(lin[j + r - q], lin[j + r + q]))
-        plog[j % n_phase, j // n_phase] = v
-        mlog[j % n_phase, j // n_phase] = math.sqrt(v)
+    for ph in range(n_phase):
+        prow = plog[ph]
+        mrow = mlog[ph]
+        for m in range(M):
+            j = m * n_phase + ph
+            v = lin[j]
+            for q in range(1, 2 * r + 1):
+                v = max(v, lin[j + q])
+            prow[m] = v
+            mrow[m] = math.sqrt(v)
 
 
 @njit(cache=True, fastmath=True)
-def _frame_evidence(p, r_tot, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n_phase,
-                    norm, n_eff, pen_h, pen_f, floor_rel, mismatch, plog, mlog, ev, sal):
-    """Evidence and compressed salience of one frame on the whole grid (module notes).
+def _frame_costs(p, r_tot, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, G,
+                 norm, n_eff, pen_h, floor_rel, mismatch, plog, mlog):
+    """Penalised residual and harmonic magnitude sum of one frame on the whole grid.
 
-    Leaves the frame's log-frequency spectrum in ``plog`` / ``mlog`` for
-    :func:`_best_order`.
+    Returns ``low`` (G,), the smallest ``residual * exp(2 L pen_h / N_e)`` over the
+    orders ``L`` (so that the evidence is ``(N_e/2) ln(R / low) - pen_f``), and
+    ``comp`` (G,), the compressed salience before normalisation.  Leaves the
+    frame's log-frequency spectrum in ``plog`` / ``mlog`` for :func:`_best_order`.
     """
-    G = ev.shape[0]
     _log_spectrum(p, tab_idx, tab_w, n_phase, plog, mlog)
-    half = 0.5 * n_eff
-    c0 = half * math.log(r_tot)
     floor_abs = r_tot * floor_rel
     # local accumulators and 1-D row views let the compiler vectorise the inner loop
     acc = np.zeros(G)
@@ -162,9 +166,12 @@ def _frame_evidence(p, r_tot, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n
             acc[g] = ek
             comp[g] += mr[g]
             low[g] = min(low[g], (max(r_tot - ek * norm, floor_abs) + mismatch * ek * norm) * qk)
-    for g in range(G):
-        ev[g] = c0 - (half * math.log(low[g]) + pen_f)
-        sal[g] = comp[g] / mag_ref
+    return low, comp
+
+
+@njit(cache=True)
+def _evidence(low_g, c0, half, pen_f):
+    return c0 - (half * math.log(low_g) + pen_f)
 
 
 @njit(cache=True)
@@ -209,7 +216,7 @@ def _scratch(n_phase, J):
 
 
 @njit(cache=True)
-def pick_candidates(P, R, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, log2_grid,
+def pick_candidates(P, R, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, log2_grid,
                     norm, n_eff, pen_h, pen_f, floor_rel, mismatch, K):
     """Top-``K`` f0 candidates of every frame from the harmonic evidence.
 
@@ -219,15 +226,14 @@ def pick_candidates(P, R, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n_pha
         Power spectra of the (windowed) frames.
     R : ndarray, shape (T,)
         Weighted frame energies ``sum(w * x**2)``.
-    mag_ref : ndarray, shape (T,)
-        Per-frame magnitude reference for the compressed salience (> 0).
     tab_idx, tab_w, h_phase, h_shift, gend, n_phase :
         Fields of :class:`HarmonicTables` and ``FINE_STEPS``.
     log2_grid : ndarray, shape (G,)
         log2 of the grid frequencies.
-    norm, n_eff, pen_h, pen_f, floor_rel : float
+    norm, n_eff, pen_h, pen_f, floor_rel, mismatch : float
         Energy scale ``2 / sum(w)``, effective sample count, penalty per
-        harmonic, penalty for the frequency, residual floor relative to ``R``.
+        harmonic, penalty for the frequency, residual floor relative to ``R``,
+        share of the explained energy counted as unexplained.
     K : int
         Candidates per frame: the ``K - 1`` strongest local maxima of the
         evidence plus the strongest maximum of the compressed salience.
@@ -249,45 +255,49 @@ def pick_candidates(P, R, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n_pha
     cand_ev = np.full((T, K), -np.inf)
     cand_o = np.zeros((T, K), dtype=np.int64)
     best_ev = np.full(T, -np.inf)
-    ev = np.empty(G)
-    sal = np.empty(G)
     plog, mlog = _scratch(n_phase, tab_idx.shape[0])
     step = log2_grid[1] - log2_grid[0] if G > 1 else 1.0
+    half = 0.5 * n_eff
     for t in range(T):
         if not (R[t] > 0.0):
             continue
-        _frame_evidence(P[t], R[t], mag_ref[t], tab_idx, tab_w, h_phase, h_shift, gend, n_phase,
-                        norm, n_eff, pen_h, pen_f, floor_rel, mismatch, plog, mlog, ev, sal)
-        # Local maxima of the evidence, strongest first (insertion into a short list).
+        low, comp = _frame_costs(P[t], R[t], tab_idx, tab_w, h_phase, h_shift, gend, n_phase, G,
+                                 norm, n_eff, pen_h, floor_rel, mismatch, plog, mlog)
+        c0 = half * math.log(R[t])
+        # Local maxima of the evidence (minima of ``low``), strongest first,
+        # inserted into a short sorted list; logarithms only where needed.
         n_found = 0
         for g in range(G):
-            left = ev[g - 1] if g > 0 else -np.inf
-            right = ev[g + 1] if g < G - 1 else -np.inf
-            if ev[g] >= left and ev[g] > right:
-                if g > 0 and g < G - 1:
-                    d, h = _parabolic(left, ev[g], right)
-                else:
-                    d, h = 0.0, ev[g]
-                pos = n_found
-                while pos > 0 and cand_ev[t, pos - 1] < h:
-                    pos -= 1
-                if pos < K - 1:
-                    last = min(n_found, K - 2)
-                    for j in range(last, pos, -1):
-                        cand_ev[t, j] = cand_ev[t, j - 1]
-                        cand_f[t, j] = cand_f[t, j - 1]
-                        cand_o[t, j] = cand_o[t, j - 1]
-                    cand_ev[t, pos] = h
-                    cand_f[t, pos] = log2_grid[g] + d * step
-                    cand_o[t, pos] = g
-                    if n_found < K - 1:
-                        n_found += 1
+            if g > 0 and low[g] > low[g - 1]:
+                continue
+            if g < G - 1 and low[g] >= low[g + 1]:
+                continue
+            e0 = _evidence(low[g], c0, half, pen_f)
+            if g > 0 and g < G - 1:
+                d, h = _parabolic(_evidence(low[g - 1], c0, half, pen_f), e0,
+                                  _evidence(low[g + 1], c0, half, pen_f))
+            else:
+                d, h = 0.0, e0
+            pos = n_found
+            while pos > 0 and cand_ev[t, pos - 1] < h:
+                pos -= 1
+            if pos < K - 1:
+                last = min(n_found, K - 2)
+                for j in range(last, pos, -1):
+                    cand_ev[t, j] = cand_ev[t, j - 1]
+                    cand_f[t, j] = cand_f[t, j - 1]
+                    cand_o[t, j] = cand_o[t, j - 1]
+                cand_ev[t, pos] = h
+                cand_f[t, pos] = log2_grid[g] + d * step
+                cand_o[t, pos] = g
+                if n_found < K - 1:
+                    n_found += 1
         if n_found > 0:
             best_ev[t] = cand_ev[t, 0]
         # Strongest compressed-salience peak, unless already a candidate.
         gbest = 0
         for g in range(1, G):
-            if sal[g] > sal[gbest]:
+            if comp[g] > comp[gbest]:
                 gbest = g
         lf = log2_grid[gbest]
         dup = False
@@ -295,10 +305,12 @@ def pick_candidates(P, R, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n_pha
             if abs(cand_f[t, j] - lf) < 2.5 * step:
                 dup = True
         if not dup:
+            e0 = _evidence(low[gbest], c0, half, pen_f)
             if gbest > 0 and gbest < G - 1:
-                d, h = _parabolic(ev[gbest - 1], ev[gbest], ev[gbest + 1])
+                d, h = _parabolic(_evidence(low[gbest - 1], c0, half, pen_f), e0,
+                                  _evidence(low[gbest + 1], c0, half, pen_f))
             else:
-                d, h = 0.0, ev[gbest]
+                d, h = 0.0, e0
             cand_f[t, n_found] = lf + d * step
             cand_ev[t, n_found] = h
             cand_o[t, n_found] = gbest
@@ -319,12 +331,15 @@ def evidence_map(P, R, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n_phase,
     order = np.zeros((T, G), dtype=np.int64)
     sal = np.zeros((T, G))
     plog, mlog = _scratch(n_phase, tab_idx.shape[0])
+    half = 0.5 * n_eff
     for t in range(T):
         if R[t] > 0.0:
-            _frame_evidence(P[t], R[t], mag_ref[t], tab_idx, tab_w, h_phase, h_shift, gend,
-                            n_phase, norm, n_eff, pen_h, pen_f, floor_rel, mismatch, plog,
-                            mlog, ev[t], sal[t])
+            low, comp = _frame_costs(P[t], R[t], tab_idx, tab_w, h_phase, h_shift, gend, n_phase,
+                                     G, norm, n_eff, pen_h, floor_rel, mismatch, plog, mlog)
+            c0 = half * math.log(R[t])
             for g in range(G):
+                ev[t, g] = _evidence(low[g], c0, half, pen_f)
+                sal[t, g] = comp[g] / mag_ref[t]
                 order[t, g] = _best_order(g, R[t], plog, h_phase, h_shift, gend, norm, n_eff,
                                           pen_h, floor_rel, mismatch)
     return ev, order, sal

@@ -60,8 +60,9 @@ def _gather(y, starts, out):
 
 
 @njit(cache=True)
-def _window_frames(y, starts, window, buf, energy):
-    """Mean-removed, windowed frames into the zero-padded ``buf``; weighted energies."""
+def _window_frames(y, starts, window, buf, energy, demean):
+    """Windowed frames (mean-removed if ``demean``) into the zero-padded ``buf``;
+    weighted energies."""
     n = y.shape[0]
     F = starts.shape[0]
     L = window.shape[0]
@@ -76,7 +77,7 @@ def _window_frames(y, starts, window, buf, energy):
             v = y[k] if 0 <= k < n else 0.0
             buf[i, j] = v
             m += window[j] * v
-        m /= wsum
+        m = m / wsum if demean else 0.0
         e = 0.0
         for j in range(L):
             v = buf[i, j] - m
@@ -96,12 +97,14 @@ def _abs2(spec, out):
             out[i, j] = z.real * z.real + z.imag * z.imag
 
 
-def windowed_spectra(y: np.ndarray, starts: np.ndarray, window: np.ndarray, nfft: int):
-    """Power spectra and weighted energies of mean-removed frames of ``y``.
+def windowed_spectra(y: np.ndarray, starts: np.ndarray, window: np.ndarray, nfft: int, *,
+                     demean: bool = True):
+    """Power spectra and weighted energies of frames of ``y``.
 
     Each frame ``x = y[s : s + len(window)]`` (zeros outside ``y``) has its
-    window-weighted mean removed; the function returns ``|FFT(window * x)|^2``
-    over bins ``0 .. nfft/2`` and the weighted energy ``sum(window * x**2)``.
+    window-weighted mean removed (unless ``demean`` is false); the function
+    returns ``|FFT(window * x)|^2`` over bins ``0 .. nfft/2`` and the weighted
+    energy ``sum(window * x**2)``.
 
     Returns
     -------
@@ -112,7 +115,7 @@ def windowed_spectra(y: np.ndarray, starts: np.ndarray, window: np.ndarray, nfft
     buf = np.empty((F, nfft))
     energy = np.empty(F)
     _window_frames(np.ascontiguousarray(y, dtype=np.float64), np.asarray(starts, dtype=np.int64),
-                   window, buf, energy)
+                   window, buf, energy, demean)
     spec = np.fft.rfft(buf, axis=1)
     power = np.empty(spec.shape)
     _abs2(spec, power)
@@ -207,7 +210,7 @@ def power_spectra(fr: np.ndarray, window: np.ndarray, nfft: int) -> np.ndarray:
 
 
 def noise_floor_psd(
-    y: np.ndarray, sr: float, *, frame_len: int, nfft: int, max_frames: int = 200,
+    y: np.ndarray, sr: float, *, frame_len: int, nfft: int, max_frames: int = 100,
     time_quantile: float = 0.2, smooth_hz: float = 400.0,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Smoothed long-term noise floor of ``y``: a low quantile over time and frequency.
@@ -229,7 +232,7 @@ def noise_floor_psd(
     hop = frame_len // 2
     n_avail = max(1, 1 + (y.size - frame_len) // hop)
     pick = np.unique(np.linspace(0, n_avail - 1, min(n_avail, max_frames)).round().astype(np.int64))
-    ps = power_spectra(frames(y, pick * hop, frame_len), analysis_window(frame_len), nfft)
+    ps, _ = windowed_spectra(y, pick * hop, analysis_window(frame_len), nfft, demean=False)
     tot = ps.sum(axis=1)
     loud = ps[tot >= np.quantile(tot, 0.8)].mean(axis=0)
     floor = _low_order_stat(ps, time_quantile, axis=0)
@@ -281,16 +284,20 @@ def whitening_filter(floor: np.ndarray, *, n_taps: int = 129, max_gain_db: float
     return h * taper
 
 
-def prewhiten(y: np.ndarray, h: np.ndarray, *, block: int = 1 << 12) -> np.ndarray:
+def prewhiten(y: np.ndarray, h: np.ndarray, *, nfft: int = 8192) -> np.ndarray:
     """Filter ``y`` with the zero-phase FIR ``h`` (output aligned with the input).
 
-    FFT overlap-add in blocks of ``block`` samples, so memory stays bounded.
+    FFT overlap-add in blocks of ``nfft - len(h) + 1`` samples, so memory stays
+    bounded.
     """
     if h.size == 1:
         return y * h[0]
     d = h.size // 2
     n = y.size
-    nfft = 1 << int(np.ceil(np.log2(block + h.size - 1)))
+    # blocks of up to nfft samples, but no larger FFT than a short signal needs
+    need = 1 << int(np.ceil(np.log2(n + h.size - 1)))
+    nfft = max(min(int(nfft), need), 1 << int(np.ceil(np.log2(4 * h.size))))
+    block = nfft - h.size + 1
     H = np.fft.rfft(h, nfft)
     full = np.zeros(n + h.size - 1)
     for b0 in range(0, n, block):

@@ -80,11 +80,9 @@ class Analyzer:
         """
         P, R = spectral.windowed_spectra(y, starts, self.window, self.rc.nfft)
         R += noise_var * self.window.sum()
-        top = int(np.ceil(self.rc.band_hz / (self.rc.sr / self.rc.nfft)))
-        mag_ref = np.sqrt(np.mean(P[:, 1:top], axis=1)) + 1e-300
         pen_h = math.log(self.n_eff)
         return salience.pick_candidates(
-            P, R, mag_ref, *self.kernel_tables, self.log2_grid, self.norm,
+            P, R, *self.kernel_tables, self.log2_grid, self.norm,
             self.n_eff, pen_h, 1.5 * pen_h, RESIDUAL_FLOOR, MISMATCH, self.rc.cfg.n_candidates,
         )
 
@@ -144,17 +142,20 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
         floor = floor + loud * 10.0 ** (-PREWHITEN_SNR_DB / 10.0)
         h = spectral.whitening_filter(floor)
         yw = spectral.prewhiten(ya, h)
-        gain = np.abs(np.fft.rfft(h, 4096))
-    an = Analyzer.build(rc)
-    noise_var = (np.max(np.abs(yw)) * 10.0 ** (-NOISE_FLOOR_DB / 20.0)) ** 2
+        gain = np.abs(np.fft.rfft(h, 1024))
+    # The candidate search may run on a decimated copy (TrackerConfig.search_sr).
+    rs = rc.search()
+    ys = yw if rs is rc else resample(yw, rc.sr, rs.sr)[0]
+    an = Analyzer.build(rs)
+    noise_var = (np.max(np.abs(ys)) * 10.0 ** (-NOISE_FLOOR_DB / 20.0)) ** 2
     K = cfg.n_candidates
     cand_lf = np.empty((n_frames, K))
     cand_ev = np.empty((n_frames, K))
     cand_order = np.empty((n_frames, K), dtype=np.int64)
     for b0 in range(0, n_frames, BLOCK_FRAMES):
         nb = min(BLOCK_FRAMES, n_frames - b0)
-        starts = spectral.frame_starts(np.arange(b0, b0 + nb), rc.hop, rc.frame_len)
-        lf, ev, order, _ = an.candidates(yw, starts, noise_var=noise_var)
+        starts = spectral.frame_starts(np.arange(b0, b0 + nb), rs.hop, rs.frame_len)
+        lf, ev, order, _ = an.candidates(ys, starts, noise_var=noise_var)
         cand_lf[b0:b0 + nb] = lf
         cand_ev[b0:b0 + nb] = ev
         cand_order[b0:b0 + nb] = order
