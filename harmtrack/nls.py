@@ -58,7 +58,7 @@ ORDER_STOP_NATS = 40.0
 #: little precision (a few per cent of the Fisher information for a voice's
 #: falling spectrum) at a cost linear in the order; the order selection and the
 #: amplitudes still use every harmonic in the band.
-MAX_REFINE_ORDER = 15
+MAX_REFINE_ORDER = 10
 
 __all__ = ["projections", "order_energies", "refine_f0", "select_order", "analyse_frame",
            "analyse_frames", "crlb_f0"]
@@ -347,50 +347,41 @@ def _vertex(em, e0, ep, w, d):
 
 
 @njit(cache=True)
-def refine_f0(x, omega0, L, rel_step, lmax, energies, C, S, u, v, R, pen_h):
+def refine_f0(x, omega0, L, rel_step):
     """Maximise the explained energy of order ``L`` near ``omega0``.
 
-    Three-point parabolic interpolation with a step of ``rel_step * omega0``:
-    one pass over the samples evaluates both side points at order ``L`` and the
-    centre at every order up to ``lmax`` (:func:`_nested_fit` into ``energies``,
-    ``C``, ``S``, ``u``, ``v``, for the order selection and the amplitudes that
-    follow; ``R`` and ``pen_h`` let it stop early, see :data:`ORDER_STOP_NATS`).  A vertex more than 1.5 steps away moves the centre there and
-    repeats, at most three times.
+    Three-point parabolic interpolation with a step of ``rel_step * omega0``, the
+    three energies from one pass over the samples.  A vertex more than 1.5 steps
+    away moves the centre there and repeats, at most three times.
 
     Returns
     -------
-    omega : float
+    float
         Refined f0, radians per sample.
-    usable : int
-        Highest order with a valid entry in ``energies``.
     """
     N = x.shape[0]
     d = rel_step * omega0
-    H = max(L, lmax)
-    PC = np.empty((3, H + 1))
-    PS = np.empty((3, H + 1))
+    PC = np.empty((3, L + 1))
+    PS = np.empty((3, L + 1))
     en = np.zeros(L + 1)
-    orders = np.array([L, lmax, L])
+    e3 = np.empty(3)
+    orders = np.array([L, L, L])
     w = omega0
-    usable = 0
     for _ in range(3):
         om = np.array([w - d, w, w + d])
         _multi_projections(x, om, orders, PC, PS)
-        usable = _nested_fit(PC[1], PS[1], w, N, lmax, energies, C, S, u, v, R, pen_h,
-                             ORDER_STOP_NATS, L)
-        if usable < L:
-            return w, usable
-        k = _nested_energies(PC[0], PS[0], om[0], N, L, en)
-        em = en[k]
-        k = _nested_energies(PC[2], PS[2], om[2], N, L, en)
-        ep = en[k]
-        den = em - 2.0 * energies[L] + ep
+        for m in range(3):
+            k = _nested_energies(PC[m], PS[m], om[m], N, L, en)
+            if k < L:
+                return w
+            e3[m] = en[L]
+        den = e3[0] - 2.0 * e3[1] + e3[2]
         if den < 0.0:
-            off = 0.5 * (em - ep) / den
+            off = 0.5 * (e3[0] - e3[2]) / den
             if abs(off) <= 1.5:
-                return w + off * d, usable
-        w = w + (1.5 * d if ep > em else -1.5 * d)
-    return w, usable
+                return w + off * d
+        w = w + (1.5 * d if e3[2] > e3[0] else -1.5 * d)
+    return w
 
 
 @njit(cache=True)
@@ -427,25 +418,34 @@ def _interp_table(table, omega):
 
 
 @njit(cache=True)
-def analyse_frame(x, xa, gain, omega0, order0, lmax, pen_h, pen_f, out_amps):
+def analyse_frame(x, xs, ratio, ra, gain, omega0, order0, lmax, lmax_s, pen_h, pen_f, out_amps):
     """Refine f0, choose the order and fit amplitudes for one voiced frame.
 
     Parameters
     ----------
     x : ndarray, shape (N,)
-        Frame the model is fitted to (possibly prewhitened).
-    xa : ndarray, shape (N,)
-        The same frame before prewhitening (for the harmonics-to-noise ratio).
+        Frame the model is fitted to (possibly prewhitened), at the analysis rate.
+    xs : ndarray, shape (Ns,)
+        The same stretch at the search rate, ``ratio`` times lower (``xs`` may be
+        ``x`` itself with ``ratio = 1``): f0 is refined on it with at most
+        ``lmax_s`` harmonics.
+    ratio : float
+        Analysis rate / search rate (>= 1).
+    ra : float
+        Energy of the frame before prewhitening, mean removed (for the
+        harmonics-to-noise ratio).
     gain : ndarray, shape (M,)
         Magnitude response of the prewhitening filter sampled uniformly on
         [0, pi] rad/sample; the amplitudes fitted on ``x`` are divided by it.
     omega0 : float
-        Starting f0, radians per sample.
+        Starting f0, radians per sample at the analysis rate.
     order0 : int
         Model order found by the search stage; refinement uses it clipped to
         ``MIN_REFINE_ORDER .. MAX_REFINE_ORDER``.
     lmax : int
-        Highest order considered by the order selection.
+        Highest order considered by the order selection (analysis band).
+    lmax_s : int
+        Highest harmonic inside the search band.
     pen_h, pen_f : float
         MAP penalties per harmonic and for the frequency (nats).
     out_amps : ndarray, shape (H,)
@@ -456,26 +456,32 @@ def analyse_frame(x, xa, gain, omega0, order0, lmax, pen_h, pen_f, out_amps):
     Returns
     -------
     omega : float
-        Refined f0, radians per sample.
+        Refined f0, radians per sample at the analysis rate.
     order : int
         Selected model order.
     hnr_db : float
-        Harmonics-to-noise ratio of ``xa`` under the fitted model, dB.
+        Harmonics-to-noise ratio of the frame before prewhitening, dB.
     """
     N = x.shape[0]
-    L0 = min(max(order0, MIN_REFINE_ORDER), MAX_REFINE_ORDER, lmax)
+    Ns = xs.shape[0]
+    L0 = max(1, min(max(order0, MIN_REFINE_ORDER), MAX_REFINE_ORDER, lmax_s))
+    # step: about a third of the half-width of the order-L0 energy peak, wide
+    # enough for the search stage's error, narrow enough for a near-quadratic peak
+    ws0 = omega0 * ratio
+    w = refine_f0(xs, ws0, L0, 0.35 * math.pi / (Ns * ws0 * L0)) / ratio
+    # every order at the refined f0, on the full band: order selection, amplitudes
+    R = 0.0
+    for n in range(N):
+        R += x[n] * x[n]
     en = np.zeros(lmax + 1)
     C = np.zeros((lmax + 1, lmax + 1))
     S = np.zeros((max(lmax, 1), max(lmax, 1)))
     u = np.zeros(lmax + 1)
     v = np.zeros(lmax + 1)
-    R = 0.0
-    for n in range(N):
-        R += x[n] * x[n]
-    # step: about a third of the half-width of the order-L0 energy peak, wide
-    # enough for the search stage's error, narrow enough for a near-quadratic peak
-    w, usable = refine_f0(x, omega0, L0, 0.35 * math.pi / (N * omega0 * L0), lmax, en, C, S, u, v,
-                          R, pen_h)
+    c = np.empty(lmax + 1)
+    s = np.empty(lmax + 1)
+    projections(x, w, lmax, c, s)
+    usable = _nested_fit(c, s, w, N, lmax, en, C, S, u, v, R, pen_h, ORDER_STOP_NATS, 1)
     lsel, _ = select_order(en, usable, R, N, pen_h, pen_f)
     if lsel == 0:
         lsel = min(L0, usable)
@@ -486,12 +492,6 @@ def analyse_frame(x, xa, gain, omega0, order0, lmax, pen_h, pen_f, out_amps):
     amps = np.zeros(lsel + 1)
     _amplitudes(C, S, u, v, lsel, amps)
     sigma2 = max(R - en[lsel], R * 1e-12) / N
-    Ra = 0.0
-    ma = 0.0
-    for n in range(N):
-        Ra += xa[n] * xa[n]
-        ma += xa[n]
-    Ra -= ma * ma / N
     harm = 0.0
     for k in range(1, lsel + 1):
         # log-likelihood gain of harmonic k, (energy of a sinusoid) / (2 sigma^2),
@@ -502,18 +502,21 @@ def analyse_frame(x, xa, gain, omega0, order0, lmax, pen_h, pen_f, out_amps):
         if k <= out_amps.shape[0]:
             out_amps[k - 1] = a
         harm += 0.5 * N * a * a
-    if not (Ra > 0.0) or harm <= 0.0:
+    if not (ra > 0.0) or harm <= 0.0:
         return w, lsel, np.nan
-    resid = max(Ra - harm, Ra * 1e-10)
+    resid = max(ra - harm, ra * 1e-10)
     return w, lsel, 10.0 * math.log10(harm / resid)
 
 
 @njit(cache=True)
-def analyse_frames(fw, fa, gain, omega0, order0, band_w, H, pen_h, pen_f):
+def analyse_frames(fw, fs, ratio, ra, gain, omega0, order0, band_w, H, pen_h, pen_f):
     """:func:`analyse_frame` over a block of frames.
 
-    ``band_w`` is the analysed band edge in radians per sample: harmonics above it
-    are neither fitted nor reported (their amplitude is NaN).
+    ``fw`` (F, N) are the frames at the analysis rate, ``fs`` (F, Ns) at the
+    search rate (``ratio`` times lower), ``ra`` (F,) their energies before
+    prewhitening.  ``band_w`` is the analysed band edge in radians per sample
+    (analysis rate): harmonics above it are neither fitted nor reported (NaN);
+    the search band is ``band_w * ratio`` capped at 0.95 pi of the search rate.
 
     Returns
     -------
@@ -525,11 +528,12 @@ def analyse_frames(fw, fa, gain, omega0, order0, band_w, H, pen_h, pen_f):
     h_out = np.empty(F)
     a_out = np.full((F, H), np.nan)
     amps = np.zeros(H)
+    band_s = min(band_w * ratio, 0.95 * math.pi)
     for i in range(F):
-        lmax = min(H, int(band_w / omega0[i]))
-        if lmax < 1:
-            lmax = 1
-        w, L, h = analyse_frame(fw[i], fa[i], gain, omega0[i], order0[i], lmax, pen_h, pen_f, amps)
+        lmax = max(1, min(H, int(band_w / omega0[i])))
+        lmax_s = max(1, int(band_s / (omega0[i] * ratio)))
+        w, L, h = analyse_frame(fw[i], fs[i], ratio, ra[i], gain, omega0[i], order0[i], lmax,
+                                lmax_s, pen_h, pen_f, amps)
         w_out[i] = w
         l_out[i] = L
         h_out[i] = h

@@ -108,7 +108,7 @@ def harmonic_tables(grid_hz: np.ndarray, *, df: float, band_hz: float,
 
 
 @njit(cache=True, fastmath=True)
-def _log_spectrum(p, sp_idx, sp_w, n_phase, plog, mlog):
+def _log_spectrum(p, sp_idx, sp_w, n_phase, plog, mlog, lin, pooled):
     """Power and magnitude on the fine log axis, split by sub-step: ``plog[phase, m]``.
 
     Each fine point holds the largest interpolated power within half a grid
@@ -116,32 +116,32 @@ def _log_spectrum(p, sp_idx, sp_w, n_phase, plog, mlog):
     between two grid points is then read at its peaks from the nearer one, so
     the evidence of neighbouring grid points does not swing with the alignment
     of the true f0 to the grid (which would otherwise let a better-aligned
-    sub-harmonic win on clean input).
+    sub-harmonic win on clean input).  ``lin`` and ``pooled`` are zero-filled
+    scratch arrays of length ``plog.shape[1] * n_phase + 2 * (n_phase // 2)``.
     """
-    J = sp_idx.shape[0]
-    B = p.shape[0]
     r = n_phase // 2
-    M = plog.shape[1]
-    lin = np.zeros(M * n_phase + 2 * r)
-    for j in range(J):
+    for j in range(sp_idx.shape[0]):
         i = sp_idx[j]
-        if i + 1 < B:
-            lin[j + r] = max(0.0, p[i - 1] * sp_w[j, 0] + p[i] * sp_w[j, 1] + p[i + 1] * sp_w[j, 2])
+        lin[j + r] = max(0.0, p[i - 1] * sp_w[j, 0] + p[i] * sp_w[j, 1] + p[i + 1] * sp_w[j, 2])
+    n = lin.shape[0]
+    for j in range(r, n - r):
+        pooled[j] = lin[j]
+    for q in range(1, r + 1):
+        for j in range(r, n - r):
+            pooled[j] = max(pooled[j], max(lin[j - q], lin[j + q]))
+    M = plog.shape[1]
     for ph in range(n_phase):
         prow = plog[ph]
         mrow = mlog[ph]
         for m in range(M):
-            j = m * n_phase + ph
-            v = lin[j]
-            for q in range(1, 2 * r + 1):
-                v = max(v, lin[j + q])
+            v = pooled[m * n_phase + ph + r]
             prow[m] = v
             mrow[m] = math.sqrt(v)
 
 
 @njit(cache=True, fastmath=True)
 def _frame_costs(p, r_tot, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, G,
-                 norm, n_eff, pen_h, floor_rel, mismatch, plog, mlog):
+                 norm, n_eff, pen_h, floor_rel, mismatch, plog, mlog, lin, pooled):
     """Penalised residual and harmonic magnitude sum of one frame on the whole grid.
 
     Returns ``low`` (G,), the smallest ``residual * exp(2 L pen_h / N_e)`` over the
@@ -149,23 +149,27 @@ def _frame_costs(p, r_tot, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, G,
     ``comp`` (G,), the compressed salience before normalisation.  Leaves the
     frame's log-frequency spectrum in ``plog`` / ``mlog`` for :func:`_best_order`.
     """
-    _log_spectrum(p, tab_idx, tab_w, n_phase, plog, mlog)
-    floor_abs = r_tot * floor_rel
+    _log_spectrum(p, tab_idx, tab_w, n_phase, plog, mlog, lin, pooled)
+    r32 = np.float32(r_tot)
+    floor32 = np.float32(r_tot * floor_rel)
+    norm32 = np.float32(norm)
+    mis32 = np.float32(mismatch * norm)
     # local accumulators and 1-D row views let the compiler vectorise the inner loop
-    acc = np.zeros(G)
-    comp = np.zeros(G)
-    low = np.full(G, 1e300)
+    acc = np.zeros(G, dtype=np.float32)
+    comp = np.zeros(G, dtype=np.float32)
+    low = np.full(G, np.float32(3e38), dtype=np.float32)
     qk = 1.0
     q = math.exp(2.0 * pen_h / n_eff)
     for k in range(h_phase.shape[0]):
         qk *= q
+        q32 = np.float32(qk)
         pr = plog[h_phase[k], h_shift[k]:]
         mr = mlog[h_phase[k], h_shift[k]:]
         for g in range(gend[k]):
             ek = acc[g] + pr[g]
             acc[g] = ek
             comp[g] += mr[g]
-            low[g] = min(low[g], (max(r_tot - ek * norm, floor_abs) + mismatch * ek * norm) * qk)
+            low[g] = min(low[g], (max(r32 - ek * norm32, floor32) + mis32 * ek) * q32)
     return low, comp
 
 
@@ -211,8 +215,13 @@ def _parabolic(ym, y0, yp):
 
 @njit(cache=True)
 def _scratch(n_phase, J):
+    # single precision: twice the SIMD width in the summation; the residual floor
+    # (>= 1e-3 of the frame energy) keeps the cancellation error far below it
     m = J // n_phase + 2
-    return np.zeros((n_phase, m)), np.zeros((n_phase, m))
+    r = n_phase // 2
+    return (np.zeros((n_phase, m), dtype=np.float32), np.zeros((n_phase, m), dtype=np.float32),
+            np.zeros(m * n_phase + 2 * r, dtype=np.float32),
+            np.zeros(m * n_phase + 2 * r, dtype=np.float32))
 
 
 @njit(cache=True)
@@ -255,14 +264,14 @@ def pick_candidates(P, R, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, log2_
     cand_ev = np.full((T, K), -np.inf)
     cand_o = np.zeros((T, K), dtype=np.int64)
     best_ev = np.full(T, -np.inf)
-    plog, mlog = _scratch(n_phase, tab_idx.shape[0])
+    plog, mlog, lin, pooled = _scratch(n_phase, tab_idx.shape[0])
     step = log2_grid[1] - log2_grid[0] if G > 1 else 1.0
     half = 0.5 * n_eff
     for t in range(T):
         if not (R[t] > 0.0):
             continue
         low, comp = _frame_costs(P[t], R[t], tab_idx, tab_w, h_phase, h_shift, gend, n_phase, G,
-                                 norm, n_eff, pen_h, floor_rel, mismatch, plog, mlog)
+                                 norm, n_eff, pen_h, floor_rel, mismatch, plog, mlog, lin, pooled)
         c0 = half * math.log(R[t])
         # Local maxima of the evidence (minima of ``low``), strongest first,
         # inserted into a short sorted list; logarithms only where needed.
@@ -330,12 +339,12 @@ def evidence_map(P, R, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n_phase,
     ev = np.full((T, G), -np.inf)
     order = np.zeros((T, G), dtype=np.int64)
     sal = np.zeros((T, G))
-    plog, mlog = _scratch(n_phase, tab_idx.shape[0])
+    plog, mlog, lin, pooled = _scratch(n_phase, tab_idx.shape[0])
     half = 0.5 * n_eff
     for t in range(T):
         if R[t] > 0.0:
             low, comp = _frame_costs(P[t], R[t], tab_idx, tab_w, h_phase, h_shift, gend, n_phase,
-                                     G, norm, n_eff, pen_h, floor_rel, mismatch, plog, mlog)
+                                     G, norm, n_eff, pen_h, floor_rel, mismatch, plog, mlog, lin, pooled)
             c0 = half * math.log(R[t])
             for g in range(G):
                 ev[t, g] = _evidence(low[g], c0, half, pen_f)

@@ -95,6 +95,9 @@ def _analyzer_cached(rc: ResolvedConfig) -> Analyzer:
     tables = salience.harmonic_tables(
         grid, df=rc.sr / rc.nfft, band_hz=rc.band_hz, max_harmonics=cfg.max_harmonics
     )
+    # the interpolation reads bins idx - 1 .. idx + 1 without bounds checks
+    if tables.sp_idx.max() + 1 > rc.nfft // 2:
+        raise AssertionError("harmonic tables reach past the spectrum")
     return Analyzer(rc=rc, window=w, grid_hz=grid, log2_grid=np.log2(grid), tables=tables,
                     norm=2.0 / w.sum(), n_eff=w.sum() ** 2 / np.sum(w**2))
 
@@ -172,7 +175,7 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
     rows = np.nonzero(voiced)[0]
     f0_init[rows] = 2.0 ** cand_lf[rows, path[rows]]
     order_init[rows] = cand_order[rows, path[rows]]
-    f0, amps, order, hnr = refine_frames(yw, ya, gain, rc, f0_init, order_init)
+    f0, amps, order, hnr = refine_frames(yw, ya, ys, gain, rc, rs, f0_init, order_init)
     times = np.arange(n_frames) * cfg.hop_s
     return Track(
         times=times, f0_hz=f0, voiced=voiced, voicing_prob=np.clip(prob, 0.0, 1.0),
@@ -181,14 +184,16 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
     )
 
 
-def refine_frames(yw: np.ndarray, ya: np.ndarray, gain: np.ndarray, rc: ResolvedConfig,
-                  f0_init: np.ndarray, order_init: np.ndarray):
+def refine_frames(yw: np.ndarray, ya: np.ndarray, ys: np.ndarray, gain: np.ndarray,
+                  rc: ResolvedConfig, rs: ResolvedConfig, f0_init: np.ndarray,
+                  order_init: np.ndarray):
     """NLS refinement and amplitudes at the frames where ``f0_init`` is finite.
 
     ``yw`` is the signal fitted (prewhitened), ``ya`` the signal before
-    prewhitening, ``gain`` the prewhitening filter's magnitude response on
-    [0, pi] rad/sample, ``order_init`` the model order the search stage found for
-    each start.
+    prewhitening, ``ys`` the prewhitened signal at the search rate of ``rs``
+    (f0 is refined on it), ``gain`` the prewhitening filter's magnitude response
+    on [0, pi] rad/sample, ``order_init`` the model order the search stage found
+    for each start.
 
     Returns
     -------
@@ -208,13 +213,21 @@ def refine_frames(yw: np.ndarray, ya: np.ndarray, gain: np.ndarray, rc: Resolved
     if rows.size == 0:
         return f0, amps, order, hnr
     pen_h = math.log(rc.frame_len)
+    # frame energies before prewhitening, mean removed, from running sums
+    c1 = np.concatenate([[0.0], np.cumsum(ya)])
+    c2 = np.concatenate([[0.0], np.cumsum(ya * ya)])
     for b0 in range(0, rows.size, BLOCK_FRAMES):
         r = rows[b0:b0 + BLOCK_FRAMES]
         starts = spectral.frame_starts(r, rc.hop, rc.frame_len)
+        lo = np.clip(starts, 0, ya.size)
+        hi = np.clip(starts + rc.frame_len, 0, ya.size)
+        ra = (c2[hi] - c2[lo]) - (c1[hi] - c1[lo]) ** 2 / rc.frame_len
         fw = spectral.frames(yw, starts, rc.frame_len)
-        fa = fw if ya is yw else spectral.frames(ya, starts, rc.frame_len)
-        w, L, h, a = nls.analyse_frames(fw, fa, gain, 2.0 * np.pi * f0_init[r] / rc.sr, order_init[r],
-                                        rc.band_hz / rc.sr * 2.0 * np.pi, H, pen_h, 1.5 * pen_h)
+        fs = fw if rs is rc else spectral.frames(
+            ys, spectral.frame_starts(r, rs.hop, rs.frame_len), rs.frame_len)
+        w, L, h, a = nls.analyse_frames(
+            fw, fs, rc.sr / rs.sr, ra, gain, 2.0 * np.pi * f0_init[r] / rc.sr, order_init[r],
+            rc.band_hz / rc.sr * 2.0 * np.pi, H, pen_h, 1.5 * pen_h)
         f0[r] = w * rc.sr / (2.0 * np.pi)
         order[r] = L
         hnr[r] = h
@@ -260,6 +273,7 @@ def estimate_frame(x, sr: float, *, fmin_hz: float, fmax_hz: float, max_harmonic
     f = 2.0 ** lf[0, 0]
     lmax = max(1, int(min(max_harmonics, rc.band_hz // f)))
     pen_h = math.log(n)
-    w, L, _ = nls.analyse_frame(x, x, np.ones(2), 2.0 * np.pi * f / sr, int(order[0, 0]), lmax,
-                                pen_h, 1.5 * pen_h, amps)
+    w, L, _ = nls.analyse_frame(x, x, 1.0, float(np.sum((x - x.mean()) ** 2)), np.ones(2),
+                                2.0 * np.pi * f / sr, int(order[0, 0]), lmax, lmax, pen_h,
+                                1.5 * pen_h, amps)
     return w * sr / (2.0 * np.pi), int(L), amps

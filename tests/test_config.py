@@ -148,6 +148,13 @@ def test_sample_rate_outside_supported_range(sr):
         make_config("voice").resolve(sr)
 
 
+def _is_5_smooth(m):
+    for p in (2, 3, 5):
+        while m % p == 0:
+            m //= p
+    return m == 1
+
+
 def test_voice_preset_resolves():
     cfg = make_config("voice")
     assert cfg.preset == "voice"
@@ -158,7 +165,17 @@ def test_voice_preset_resolves():
     assert rc.frame_len == 800
     assert rc.hop == pytest.approx(160.0)
     assert rc.band_hz == pytest.approx(0.95 * 8000)
-    assert rc.nfft >= 2 * rc.frame_len and rc.nfft & (rc.nfft - 1) == 0
+    # FFT size: the smallest 5-smooth length of at least twice the frame
+    n = rc.nfft
+    assert n >= 2 * rc.frame_len
+    for p in (2, 3, 5):
+        while n % p == 0:
+            n //= p
+    assert n == 1
+    assert not any(_is_5_smooth(m) for m in range(2 * rc.frame_len, rc.nfft))
+    # the candidate search runs on a copy decimated to the preset's search rate
+    rs = rc.search()
+    assert rs.sr == 8000 and rs.frame_len == 400 and rs.band_hz == pytest.approx(3800)
     # higher input rates are analysed at the preset's analysis rate
     rc48 = cfg.resolve(48000)
     assert rc48.sr == 16000 and rc48.sr_in == 48000
