@@ -228,7 +228,8 @@ def refine_frames(yw: np.ndarray, ya: np.ndarray, ys: np.ndarray, gain: np.ndarr
         w, L, h, a = nls.analyse_frames(
             fw, fs, rc.sr / rs.sr, ra, gain, 2.0 * np.pi * f0_init[r] / rc.sr, order_init[r],
             rc.band_hz / rc.sr * 2.0 * np.pi, H, pen_h, 1.5 * pen_h)
-        f0[r] = w * rc.sr / (2.0 * np.pi)
+        # the refinement may step past the ends of the search grid: f0 stays in range
+        f0[r] = np.clip(w * rc.sr / (2.0 * np.pi), cfg.fmin_hz, cfg.fmax_hz)
         order[r] = L
         hnr[r] = h
         amps[r] = a
