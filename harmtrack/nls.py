@@ -51,8 +51,9 @@ from numba import njit
 MIN_REFINE_ORDER = 8
 
 #: The all-order fit stops adding harmonics once the MAP cost is this many nats
-#: above its best (about seven noise-only harmonics past the best order).
-ORDER_STOP_NATS = 40.0
+#: above its best (about ten noise-only harmonics past the best order, so that a
+#: run of harmonics lost in noise between two formants does not end the fit).
+ORDER_STOP_NATS = 60.0
 
 #: Largest model order used while refining f0.  The harmonics above it add
 #: little precision (a few per cent of the Fisher information for a voice's

@@ -56,6 +56,11 @@ def log_grid(fmin_hz: float, fmax_hz: float, cents: float) -> np.ndarray:
 FINE_STEPS = 2
 
 
+#: Harmonics summed by the compressed salience: the low partials, where one strong
+#: component must not outweigh a series.
+COMPRESSED_HARMONICS = 10
+
+
 class HarmonicTables(NamedTuple):
     """Lookup tables of the harmonic summation (see :func:`harmonic_tables`)."""
 
@@ -164,11 +169,13 @@ def _frame_costs(p, r_tot, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, G,
         qk *= q
         q32 = np.float32(qk)
         pr = plog[h_phase[k], h_shift[k]:]
-        mr = mlog[h_phase[k], h_shift[k]:]
+        if k < COMPRESSED_HARMONICS:
+            mr = mlog[h_phase[k], h_shift[k]:]
+            for g in range(gend[k]):
+                comp[g] += mr[g]
         for g in range(gend[k]):
             ek = acc[g] + pr[g]
             acc[g] = ek
-            comp[g] += mr[g]
             low[g] = min(low[g], (max(r32 - ek * norm32, floor32) + mis32 * ek) * q32)
     return low, comp
 

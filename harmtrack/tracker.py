@@ -36,8 +36,13 @@ RESIDUAL_FLOOR = 10 ** -3.0
 MISMATCH = 0.01
 
 #: The prewhitening filter flattens the long-term noise floor plus the loud
-#: frames' spectrum this many dB down: noise well below the signal is ignored.
+#: frames' spectrum this many dB down.  Flattening even a faint floor helps: in a
+#: clean or reverberant recording the floor is the room's and the voice's
+#: long-term colour, and flattening it brings out the upper harmonics.
 PREWHITEN_SNR_DB = 60.0
+
+#: Length of the prewhitening filter (samples at the analysis rate).
+WHITENING_TAPS = 129
 
 #: Level of the noise every frame is assumed to hold at least, in dB below the
 #: signal's peak: digital silence and filter leakage then count as noise, not as a
@@ -139,11 +144,10 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
     gain = np.ones(2)
     if cfg.prewhiten:
         floor, loud = spectral.noise_floor_psd(ya, rc.sr, frame_len=rc.frame_len, nfft=rc.nfft)
-        # Flatten the noise where it matters and the signal's long-term colour
-        # elsewhere: a noise floor far below the signal (a clean recording's
-        # pauses) then cannot reshape the voice.
+        # The loud frames' spectrum, far down, keeps the floor finite where the
+        # recording holds nothing (digital silence, a band-limited channel).
         floor = floor + loud * 10.0 ** (-PREWHITEN_SNR_DB / 10.0)
-        h = spectral.whitening_filter(floor)
+        h = spectral.whitening_filter(floor, n_taps=WHITENING_TAPS)
         yw = spectral.prewhiten(ya, h)
         gain = np.abs(np.fft.rfft(h, 1024))
     # The candidate search may run on a decimated copy (TrackerConfig.search_sr).
@@ -213,15 +217,10 @@ def refine_frames(yw: np.ndarray, ya: np.ndarray, ys: np.ndarray, gain: np.ndarr
     if rows.size == 0:
         return f0, amps, order, hnr
     pen_h = math.log(rc.frame_len)
-    # frame energies before prewhitening, mean removed, from running sums
-    c1 = np.concatenate([[0.0], np.cumsum(ya)])
-    c2 = np.concatenate([[0.0], np.cumsum(ya * ya)])
     for b0 in range(0, rows.size, BLOCK_FRAMES):
         r = rows[b0:b0 + BLOCK_FRAMES]
         starts = spectral.frame_starts(r, rc.hop, rc.frame_len)
-        lo = np.clip(starts, 0, ya.size)
-        hi = np.clip(starts + rc.frame_len, 0, ya.size)
-        ra = (c2[hi] - c2[lo]) - (c1[hi] - c1[lo]) ** 2 / rc.frame_len
+        ra = spectral.frame_energies(ya, starts, rc.frame_len)
         fw = spectral.frames(yw, starts, rc.frame_len)
         fs = fw if rs is rc else spectral.frames(
             ys, spectral.frame_starts(r, rs.hop, rs.frame_len), rs.frame_len)
