@@ -261,7 +261,8 @@ def _chol_row(A, i):
 
 
 @njit(cache=True)
-def _nested_fit(c, s, omega, N, L, energies, C, S, u, v, R, pen_h, margin, min_order):
+def _nested_fit(c, s, omega, N, L, energies, C, S, u, v, R, pen_h, margin, min_order,
+                res_floor=0.0):
     """Nested least squares for the orders ``0..L``, keeping the factors.
 
     The Cholesky factors of the cosine and sine Gram blocks and the
@@ -286,7 +287,7 @@ def _nested_fit(c, s, omega, N, L, energies, C, S, u, v, R, pen_h, margin, min_o
     energies[0] = e
     q = math.exp(2.0 * pen_h / N)
     stop = math.exp(2.0 * margin / N) if margin < 1e6 else np.inf
-    floor = R * 1e-12
+    floor = max(R * 1e-12, res_floor)
     best = max(R - e, floor)
     qk = 1.0
     for l in range(1, L + 1):
@@ -386,10 +387,10 @@ def refine_f0(x, omega0, L, rel_step):
 
 
 @njit(cache=True)
-def select_order(energies, usable, R, N, pen_h, pen_f):
+def select_order(energies, usable, R, N, pen_h, pen_f, res_floor=0.0):
     """MAP order (0 = noise only) and its cost gain over the noise-only model (nats)."""
     half = 0.5 * N
-    floor = R * 1e-12
+    floor = max(R * 1e-12, res_floor)
     r0 = R - energies[0]
     if r0 < floor:
         r0 = floor
@@ -419,7 +420,8 @@ def _interp_table(table, omega):
 
 
 @njit(cache=True)
-def analyse_frame(x, xs, ratio, ra, gain, omega0, order0, lmax, lmax_s, pen_h, pen_f, out_amps):
+def analyse_frame(x, xs, ratio, ra, gain, omega0, order0, lmax, lmax_s, pen_h, pen_f, noise_var,
+                  out_amps):
     """Refine f0, choose the order and fit amplitudes for one voiced frame.
 
     Parameters
@@ -449,6 +451,9 @@ def analyse_frame(x, xs, ratio, ra, gain, omega0, order0, lmax, lmax_s, pen_h, p
         Highest harmonic inside the search band.
     pen_h, pen_f : float
         MAP penalties per harmonic and for the frequency (nats).
+    noise_var : float
+        Noise power per sample the frame is assumed to hold at least (a floor
+        under the residual, so that rounding noise never passes for a harmonic).
     out_amps : ndarray, shape (H,)
         Receives the amplitude of harmonic ``k`` at ``k - 1``: 0 above the
         selected order and for harmonics whose own evidence is below their
@@ -482,8 +487,9 @@ def analyse_frame(x, xs, ratio, ra, gain, omega0, order0, lmax, lmax_s, pen_h, p
     c = np.empty(lmax + 1)
     s = np.empty(lmax + 1)
     projections(x, w, lmax, c, s)
-    usable = _nested_fit(c, s, w, N, lmax, en, C, S, u, v, R, pen_h, ORDER_STOP_NATS, 1)
-    lsel, _ = select_order(en, usable, R, N, pen_h, pen_f)
+    res_floor = N * noise_var
+    usable = _nested_fit(c, s, w, N, lmax, en, C, S, u, v, R, pen_h, ORDER_STOP_NATS, 1, res_floor)
+    lsel, _ = select_order(en, usable, R, N, pen_h, pen_f, res_floor)
     if lsel == 0:
         lsel = min(L0, usable)
     for k in range(out_amps.shape[0]):
@@ -492,7 +498,7 @@ def analyse_frame(x, xs, ratio, ra, gain, omega0, order0, lmax, lmax_s, pen_h, p
         return w, 0, np.nan
     amps = np.zeros(lsel + 1)
     _amplitudes(C, S, u, v, lsel, amps)
-    sigma2 = max(R - en[lsel], R * 1e-12) / N
+    sigma2 = max(R - en[lsel], R * 1e-12, res_floor) / N
     harm = 0.0
     for k in range(1, lsel + 1):
         # log-likelihood gain of harmonic k, (energy of a sinusoid) / (2 sigma^2),
@@ -510,7 +516,7 @@ def analyse_frame(x, xs, ratio, ra, gain, omega0, order0, lmax, lmax_s, pen_h, p
 
 
 @njit(cache=True)
-def analyse_frames(fw, fs, ratio, ra, gain, omega0, order0, band_w, H, pen_h, pen_f):
+def analyse_frames(fw, fs, ratio, ra, gain, omega0, order0, band_w, H, pen_h, pen_f, noise_var):
     """:func:`analyse_frame` over a block of frames.
 
     ``fw`` (F, N) are the frames at the analysis rate, ``fs`` (F, Ns) at the
@@ -534,7 +540,7 @@ def analyse_frames(fw, fs, ratio, ra, gain, omega0, order0, band_w, H, pen_h, pe
         lmax = max(1, min(H, int(band_w / omega0[i])))
         lmax_s = max(1, int(band_s / (omega0[i] * ratio)))
         w, L, h = analyse_frame(fw[i], fs[i], ratio, ra[i], gain, omega0[i], order0[i], lmax,
-                                lmax_s, pen_h, pen_f, amps)
+                                lmax_s, pen_h, pen_f, noise_var, amps)
         w_out[i] = w
         l_out[i] = L
         h_out[i] = h

@@ -107,6 +107,11 @@ def _analyzer_cached(rc: ResolvedConfig) -> Analyzer:
                     norm=2.0 / w.sum(), n_eff=w.sum() ** 2 / np.sum(w**2))
 
 
+def _noise_floor_var(y: np.ndarray) -> float:
+    """Noise power per sample at :data:`NOISE_FLOOR_DB` below the peak of ``y``."""
+    return float((np.max(np.abs(y)) * 10.0 ** (-NOISE_FLOOR_DB / 20.0)) ** 2)
+
+
 def _emissions(cand_ev: np.ndarray, rc: ResolvedConfig) -> tuple[np.ndarray, np.ndarray]:
     """Voiced and unvoiced emission log-potentials from the candidates' evidence."""
     cfg = rc.cfg
@@ -154,7 +159,7 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
     rs = rc.search()
     ys = yw if rs is rc else resample(yw, rc.sr, rs.sr)[0]
     an = Analyzer.build(rs)
-    noise_var = (np.max(np.abs(ys)) * 10.0 ** (-NOISE_FLOOR_DB / 20.0)) ** 2
+    noise_var = _noise_floor_var(ys)
     K = cfg.n_candidates
     cand_lf = np.empty((n_frames, K))
     cand_ev = np.empty((n_frames, K))
@@ -217,6 +222,7 @@ def refine_frames(yw: np.ndarray, ya: np.ndarray, ys: np.ndarray, gain: np.ndarr
     if rows.size == 0:
         return f0, amps, order, hnr
     pen_h = math.log(rc.frame_len)
+    noise_var = _noise_floor_var(yw)
     for b0 in range(0, rows.size, BLOCK_FRAMES):
         r = rows[b0:b0 + BLOCK_FRAMES]
         starts = spectral.frame_starts(r, rc.hop, rc.frame_len)
@@ -226,7 +232,7 @@ def refine_frames(yw: np.ndarray, ya: np.ndarray, ys: np.ndarray, gain: np.ndarr
             ys, spectral.frame_starts(r, rs.hop, rs.frame_len), rs.frame_len)
         w, L, h, a = nls.analyse_frames(
             fw, fs, rc.sr / rs.sr, ra, gain, 2.0 * np.pi * f0_init[r] / rc.sr, order_init[r],
-            rc.band_hz / rc.sr * 2.0 * np.pi, H, pen_h, 1.5 * pen_h)
+            rc.band_hz / rc.sr * 2.0 * np.pi, H, pen_h, 1.5 * pen_h, noise_var)
         # the refinement may step past the ends of the search grid: f0 stays in range
         f0[r] = np.clip(w * rc.sr / (2.0 * np.pi), cfg.fmin_hz, cfg.fmax_hz)
         order[r] = L
@@ -275,5 +281,5 @@ def estimate_frame(x, sr: float, *, fmin_hz: float, fmax_hz: float, max_harmonic
     pen_h = math.log(n)
     w, L, _ = nls.analyse_frame(x, x, 1.0, float(np.sum((x - x.mean()) ** 2)), np.ones(2),
                                 2.0 * np.pi * f / sr, int(order[0, 0]), lmax, lmax, pen_h,
-                                1.5 * pen_h, amps)
+                                1.5 * pen_h, _noise_floor_var(x), amps)
     return w * sr / (2.0 * np.pi), int(L), amps
