@@ -386,6 +386,41 @@ def refine_f0(x, omega0, L, rel_step):
     return w
 
 
+@njit(cache=True, fastmath=True)
+def _near_orthogonal_solve(c, s, D, L, ac, bs):
+    """Least-squares coefficients when the Gram blocks are nearly diagonal.
+
+    ``C_kl = (D[|k-l|] + D[k+l]) / 2`` (k, l = 0..L) and ``S_kl = (D[|k-l|] -
+    D[k+l]) / 2`` (k, l = 1..L).  Two Jacobi sweeps from the diagonal solution;
+    the off-diagonal terms of a frame of whole periods are a fraction of a
+    sample's worth against ``N / 2`` on the diagonal, so the error left is of
+    the order of the coupling cubed.
+    """
+    a0 = np.empty(L + 1)
+    b0 = np.zeros(L + 1)
+    for k in range(L + 1):
+        a0[k] = c[k] / (0.5 * (D[0] + D[2 * k]))
+    for k in range(1, L + 1):
+        b0[k] = s[k] / (0.5 * (D[0] - D[2 * k]))
+    for _ in range(2):
+        for k in range(L + 1):
+            acc = 0.0
+            for l in range(L + 1):
+                if l != k:
+                    acc += 0.5 * (D[abs(k - l)] + D[k + l]) * a0[l]
+            ac[k] = (c[k] - acc) / (0.5 * (D[0] + D[2 * k]))
+        bs[0] = 0.0
+        for k in range(1, L + 1):
+            acc = 0.0
+            for l in range(1, L + 1):
+                if l != k:
+                    acc += 0.5 * (D[abs(k - l)] - D[k + l]) * b0[l]
+            bs[k] = (s[k] - acc) / (0.5 * (D[0] - D[2 * k]))
+        for k in range(L + 1):
+            a0[k] = ac[k]
+            b0[k] = bs[k]
+
+
 @njit(cache=True)
 def select_order(energies, usable, R, N, pen_h, pen_f, res_floor=0.0):
     """MAP order (0 = noise only) and its cost gain over the noise-only model (nats)."""
@@ -475,29 +510,45 @@ def analyse_frame(x, xs, ratio, ra, gain, omega0, order0, lmax, lmax_s, pen_h, p
     # enough for the search stage's error, narrow enough for a near-quadratic peak
     ws0 = omega0 * ratio
     w = refine_f0(xs, ws0, L0, 0.35 * math.pi / (Ns * ws0 * L0)) / ratio
-    # every order at the refined f0, on the full band: order selection, amplitudes
+    # Every order at the refined f0, on the full band: order selection and
+    # amplitudes.  Over a whole number of periods the harmonic columns are
+    # orthogonal up to the rounding of the length to whole samples, so the normal
+    # equations need no factorisation: the diagonal solution plus one Jacobi
+    # correction for the small remaining coupling.
+    n_full = N
+    M = int(N * w / (2.0 * math.pi))
+    if M >= 2:
+        Np = min(N, int(round(M * 2.0 * math.pi / w)))
+        off = (N - Np) // 2
+        x = x[off:off + Np]
+        N = Np
     R = 0.0
     for n in range(N):
         R += x[n] * x[n]
-    en = np.zeros(lmax + 1)
-    C = np.zeros((lmax + 1, lmax + 1))
-    S = np.zeros((max(lmax, 1), max(lmax, 1)))
-    u = np.zeros(lmax + 1)
-    v = np.zeros(lmax + 1)
+    res_floor = N * noise_var
     c = np.empty(lmax + 1)
     s = np.empty(lmax + 1)
     projections(x, w, lmax, c, s)
-    res_floor = N * noise_var
-    usable = _nested_fit(c, s, w, N, lmax, en, C, S, u, v, R, pen_h, ORDER_STOP_NATS, 1, res_floor)
-    lsel, _ = select_order(en, usable, R, N, pen_h, pen_f, res_floor)
+    D = _dirichlet_table(w, N, 2 * lmax)
+    ac = np.empty(lmax + 1)
+    bs = np.empty(lmax + 1)
+    _near_orthogonal_solve(c, s, D, lmax, ac, bs)
+    en = np.empty(lmax + 1)
+    e = c[0] * ac[0]
+    en[0] = e
+    for k in range(1, lmax + 1):
+        e += c[k] * ac[k] + s[k] * bs[k]
+        en[k] = e
+    lsel, _ = select_order(en, lmax, R, N, pen_h, pen_f, res_floor)
     if lsel == 0:
-        lsel = min(L0, usable)
+        lsel = min(L0, lmax)
     for k in range(out_amps.shape[0]):
         out_amps[k] = 0.0
     if lsel < 1:
         return w, 0, np.nan
     amps = np.zeros(lsel + 1)
-    _amplitudes(C, S, u, v, lsel, amps)
+    for k in range(1, lsel + 1):
+        amps[k] = math.sqrt(ac[k] * ac[k] + bs[k] * bs[k])
     sigma2 = max(R - en[lsel], R * 1e-12, res_floor) / N
     harm = 0.0
     for k in range(1, lsel + 1):
@@ -508,7 +559,7 @@ def analyse_frame(x, xs, ratio, ra, gain, omega0, order0, lmax, lmax_s, pen_h, p
         a = amps[k] / _interp_table(gain, k * w)
         if k <= out_amps.shape[0]:
             out_amps[k - 1] = a
-        harm += 0.5 * N * a * a
+        harm += 0.5 * n_full * a * a
     if not (ra > 0.0) or harm <= 0.0:
         return w, lsel, np.nan
     resid = max(ra - harm, ra * 1e-10)
