@@ -66,19 +66,42 @@ __all__ = ["projections", "order_energies", "refine_f0", "select_order", "analys
 
 
 @njit(cache=True, fastmath=True)
-def _centred_dtft(x, theta, re_out, im_out):
-    """``sum_n x[n] exp(-i theta_j t_n)`` for every lane ``j``, ``t`` centred on the frame.
+def _centred_dtft(x, omegas, orders, re_out, im_out):
+    """``sum_n x[n] exp(-i k w_m t_n)`` for ``k = 1..orders[m]`` of every ``w_m``.
 
-    Goertzel recursions for all lanes (any mix of frequencies and harmonics) run
-    interleaved in one pass over the samples, two samples per step.
+    ``t`` is centred on the frame.  Lane ``j`` runs through the harmonics of
+    ``omegas[0]``, then of ``omegas[1]``... Goertzel recursions for all lanes run
+    interleaved in one pass over the samples, two samples per step; the
+    per-lane cosines and phase factors come from complex rotations, two sines
+    and cosines per frequency.
     """
     N = x.shape[0]
-    J = theta.shape[0]
+    J = re_out.shape[0]
     coef = np.empty(J)
+    rot_r = np.empty(J)   # cos(k w)
+    rot_i = np.empty(J)   # sin(k w)
+    ph_r = np.empty(J)    # cos(-k w (N-1)/2)
+    ph_i = np.empty(J)    # sin(-k w (N-1)/2)
+    j = 0
+    for m in range(omegas.shape[0]):
+        w = omegas[m]
+        c1 = math.cos(w)
+        s1 = math.sin(w)
+        h = -0.5 * w * (N - 1)
+        p1r = math.cos(h)
+        p1i = math.sin(h)
+        cr, ci, pr, pi = c1, s1, p1r, p1i
+        for _ in range(orders[m]):
+            rot_r[j] = cr
+            rot_i[j] = ci
+            ph_r[j] = pr
+            ph_i[j] = pi
+            coef[j] = 2.0 * cr
+            cr, ci = cr * c1 - ci * s1, cr * s1 + ci * c1
+            pr, pi = pr * p1r - pi * p1i, pr * p1i + pi * p1r
+            j += 1
     a = np.zeros(J)  # s[n-1]
     b = np.zeros(J)  # s[n-2]
-    for j in range(J):
-        coef[j] = 2.0 * math.cos(theta[j])
     n0 = N % 2
     if n0 == 1:
         x0 = x[0]
@@ -95,14 +118,10 @@ def _centred_dtft(x, theta, re_out, im_out):
     # X(th) = sum x[n] e^{-i th n} = e^{-i th (N-1)} (a - e^{-i th} b); the centred
     # sum is e^{i th (N-1)/2} X(th) = e^{-i th (N-1)/2} (a - e^{-i th} b).
     for j in range(J):
-        th = theta[j]
-        re = a[j] - math.cos(th) * b[j]
-        im = math.sin(th) * b[j]
-        ph = -0.5 * th * (N - 1)
-        cp = math.cos(ph)
-        sp = math.sin(ph)
-        re_out[j] = re * cp - im * sp
-        im_out[j] = re * sp + im * cp
+        re = a[j] - rot_r[j] * b[j]
+        im = rot_i[j] * b[j]
+        re_out[j] = re * ph_r[j] - im * ph_i[j]
+        im_out[j] = re * ph_i[j] + im * ph_r[j]
 
 
 @njit(cache=True)
@@ -118,12 +137,9 @@ def projections(x, omega, L, c, s):
     s[0] = 0.0
     if L == 0:
         return
-    theta = np.empty(L)
-    for k in range(L):
-        theta[k] = (k + 1) * omega
     re = np.empty(L)
     im = np.empty(L)
-    _centred_dtft(x, theta, re, im)
+    _centred_dtft(x, np.array([omega]), np.array([L]), re, im)
     for k in range(L):
         c[k + 1] = re[k]
         s[k + 1] = -im[k]
@@ -140,15 +156,9 @@ def _multi_projections(x, omegas, orders, C, S):
     J = 0
     for m in range(M):
         J += orders[m]
-    theta = np.empty(J)
-    j = 0
-    for m in range(M):
-        for k in range(orders[m]):
-            theta[j] = (k + 1) * omegas[m]
-            j += 1
     re = np.empty(J)
     im = np.empty(J)
-    _centred_dtft(x, theta, re, im)
+    _centred_dtft(x, omegas, orders, re, im)
     j = 0
     for m in range(M):
         C[m, 0] = tot
