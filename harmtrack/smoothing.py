@@ -109,104 +109,85 @@ def viterbi(lf, ev, unv, a, log_switch, log_stay):
 
 
 @njit(cache=True)
-def _lse(v, n):
-    m = -np.inf
-    for i in range(n):
-        if v[i] > m:
-            m = v[i]
-    if m == -np.inf:
-        return m
-    s = 0.0
-    for i in range(n):
-        s += math.exp(v[i] - m)
-    return m + math.log(s)
-
-
-@njit(cache=True)
-def _step(prev, lf_prev, lf_cur, a, log_switch, log_stay, K, out, tmp):
-    """Sum-product transition from ``prev`` (frame t-1) to frame t, without emissions."""
-    for j in range(K):
-        if math.isnan(lf_cur[j]):
-            out[j] = -np.inf
-            continue
-        n = 0
-        tmp[n] = prev[K] + log_switch
-        n += 1
-        for i in range(K):
-            if math.isnan(lf_prev[i]) or prev[i] == -np.inf:
-                continue
-            d = lf_cur[j] - lf_prev[i]
-            tmp[n] = prev[i] + log_stay - a * d * d
-            n += 1
-        out[j] = _lse(tmp, n)
-    tmp[0] = prev[K] + log_stay
-    for i in range(K):
-        tmp[i + 1] = prev[i] + log_switch
-    out[K] = _lse(tmp, K + 1)
-
-
-@njit(cache=True)
 def voicing_posterior(lf, ev, unv, a, log_switch, log_stay):
     """Posterior probability of the voiced states, per frame (forward-backward).
 
-    Same lattice and potentials as :func:`viterbi`.
+    Same lattice and potentials as :func:`viterbi`.  The recursions run on
+    potentials scaled per frame (linear domain), so each frame costs the
+    exponentials of its transition matrix and emissions, and no logarithms.
 
     Returns
     -------
     ndarray, shape (T,)
     """
     T, K = lf.shape
+    S = K + 1
     out = np.zeros(T)
     if T == 0:
         return out
-    alpha = np.full((T, K + 1), -np.inf)
-    tmp = np.empty(K + 2)
-    pred = np.empty(K + 1)
-    for j in range(K):
-        if not math.isnan(lf[0, j]):
-            alpha[0, j] = ev[0, j]
-    alpha[0, K] = unv[0]
-    for t in range(1, T):
-        _step(alpha[t - 1], lf[t - 1], lf[t], a, log_switch, log_stay, K, pred, tmp)
+    stay = math.exp(log_stay)
+    switch = math.exp(log_switch)
+    em = np.zeros((T, S))
+    for t in range(T):
+        m = unv[t]
         for j in range(K):
-            alpha[t, j] = pred[j] + ev[t, j]
-        alpha[t, K] = pred[K] + unv[t]
-        m = _lse(alpha[t], K + 1)
-        for j in range(K + 1):
-            alpha[t, j] -= m
-    beta = np.zeros(K + 1)
-    nb = np.empty(K + 1)
+            if not math.isnan(lf[t, j]) and ev[t, j] > m:
+                m = ev[t, j]
+        for j in range(K):
+            em[t, j] = 0.0 if math.isnan(lf[t, j]) else math.exp(ev[t, j] - m)
+        em[t, K] = math.exp(unv[t] - m)
+    # transition matrices between frames t-1 and t: tr[t, i, j]
+    tr = np.zeros((T, S, S))
+    for t in range(1, T):
+        for i in range(K):
+            if math.isnan(lf[t - 1, i]):
+                continue
+            for j in range(K):
+                if not math.isnan(lf[t, j]):
+                    d = lf[t, j] - lf[t - 1, i]
+                    tr[t, i, j] = stay * math.exp(-a * d * d)
+            tr[t, i, K] = switch
+        for j in range(K):
+            tr[t, K, j] = switch
+        tr[t, K, K] = stay
+    alpha = np.zeros((T, S))
+    for j in range(S):
+        alpha[0, j] = em[0, j]
+    z = alpha[0].sum()
+    for j in range(S):
+        alpha[0, j] /= z
+    for t in range(1, T):
+        tot = 0.0
+        for j in range(S):
+            acc = 0.0
+            for i in range(S):
+                acc += alpha[t - 1, i] * tr[t, i, j]
+            acc *= em[t, j]
+            alpha[t, j] = acc
+            tot += acc
+        if tot <= 0.0:
+            # every path died (cannot happen with the unvoiced state): restart
+            for j in range(S):
+                alpha[t, j] = em[t, j]
+            tot = alpha[t].sum()
+        for j in range(S):
+            alpha[t, j] /= tot
+    beta = np.ones(S)
+    nb = np.empty(S)
     for t in range(T - 1, -1, -1):
-        post = np.empty(K + 1)
-        for j in range(K + 1):
-            post[j] = alpha[t, j] + beta[j]
-        z = _lse(post, K + 1)
-        pu = math.exp(post[K] - z)
-        out[t] = 1.0 - pu
+        post_tot = 0.0
+        for j in range(S):
+            post_tot += alpha[t, j] * beta[j]
+        out[t] = 1.0 - alpha[t, K] * beta[K] / post_tot
         if t == 0:
             break
-        # beta_{t-1}(i) = lse_j [ trans(i->j) + em_t(j) + beta_t(j) ]
-        for i in range(K + 1):
-            n = 0
-            for j in range(K + 1):
-                if j < K:
-                    if math.isnan(lf[t, j]):
-                        continue
-                    em = ev[t, j]
-                    if i < K:
-                        if math.isnan(lf[t - 1, i]):
-                            continue
-                        d = lf[t, j] - lf[t - 1, i]
-                        tr = log_stay - a * d * d
-                    else:
-                        tr = log_switch
-                else:
-                    em = unv[t]
-                    tr = log_stay if i == K else log_switch
-                tmp[n] = tr + em + beta[j]
-                n += 1
-            nb[i] = _lse(tmp, n) if n > 0 else -np.inf
-        m = _lse(nb, K + 1)
-        for i in range(K + 1):
-            beta[i] = nb[i] - m if m != -np.inf else 0.0
+        tot = 0.0
+        for i in range(S):
+            acc = 0.0
+            for j in range(S):
+                acc += tr[t, i, j] * em[t, j] * beta[j]
+            nb[i] = acc
+            tot += acc
+        for i in range(S):
+            beta[i] = nb[i] / tot
     return out
