@@ -148,7 +148,9 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
     yw = ya
     gain = np.ones(2)
     if cfg.prewhiten:
-        floor, loud = spectral.noise_floor_psd(ya, rc.sr, frame_len=rc.frame_len, nfft=rc.nfft)
+        # no zero-padding: the floor is smoothed over hundreds of hertz anyway
+        floor, loud = spectral.noise_floor_psd(ya, rc.sr, frame_len=rc.frame_len,
+                                               nfft=rc.frame_len)
         # The loud frames' spectrum, far down, keeps the floor finite where the
         # recording holds nothing (digital silence, a band-limited channel).
         floor = floor + loud * 10.0 ** (-PREWHITEN_SNR_DB / 10.0)
