@@ -70,14 +70,19 @@ def _cent_errors(ref_f0: np.ndarray, est_f0: np.ndarray, both: np.ndarray) -> np
     return np.abs(hz_to_cents(ref_f0[both]) - hz_to_cents(est_f0[both]))
 
 
-def _aligned(ref_f0, est_f0):
-    ref_f0 = np.asarray(ref_f0, dtype=np.float64)
-    est_f0 = np.asarray(est_f0, dtype=np.float64)
-    if ref_f0.ndim != 1 or ref_f0.shape != est_f0.shape:
+def _pair_1d(a, b, what: str) -> tuple[np.ndarray, np.ndarray]:
+    """Two float arrays that must be 1-D and of one length (``what`` names them)."""
+    a = np.asarray(a, dtype=np.float64)
+    b = np.asarray(b, dtype=np.float64)
+    if a.ndim != 1 or a.shape != b.shape:
         raise HarmtrackError(
-            f"reference and estimate f0 must be 1-D arrays of one length; got shapes "
-            f"{ref_f0.shape} and {est_f0.shape}"
+            f"{what} must be 1-D arrays of one length; got shapes {a.shape} and {b.shape}"
         )
+    return a, b
+
+
+def _aligned(ref_f0, est_f0):
+    ref_f0, est_f0 = _pair_1d(ref_f0, est_f0, "reference and estimate f0")
     return ref_f0, est_f0, is_voiced(ref_f0), is_voiced(est_f0)
 
 
@@ -177,13 +182,7 @@ def evaluate_aligned(ref_f0, est_f0, *, cent_tolerance: float = 50.0,
 
 
 def _check_series(times, f0, what: str) -> tuple[np.ndarray, np.ndarray]:
-    times = np.asarray(times, dtype=np.float64)
-    f0 = np.asarray(f0, dtype=np.float64)
-    if times.ndim != 1 or times.shape != f0.shape:
-        raise HarmtrackError(
-            f"{what} times and f0 must be 1-D arrays of one length; got shapes "
-            f"{times.shape} and {f0.shape}"
-        )
+    times, f0 = _pair_1d(times, f0, f"{what} times and f0")
     if not np.all(np.isfinite(times)) or (times.size > 1 and not np.all(np.diff(times) > 0)):
         raise HarmtrackError(f"{what} times must be finite and strictly increasing")
     return times, f0

@@ -221,6 +221,16 @@ def _parabolic(ym, y0, yp):
 
 
 @njit(cache=True)
+def _peak(low, g, c0, half, pen_f):
+    """Sub-grid offset and height of the evidence peak at grid point ``g``."""
+    e0 = _evidence(low[g], c0, half, pen_f)
+    if g == 0 or g == low.shape[0] - 1:
+        return 0.0, e0
+    return _parabolic(_evidence(low[g - 1], c0, half, pen_f), e0,
+                      _evidence(low[g + 1], c0, half, pen_f))
+
+
+@njit(cache=True)
 def _scratch(n_phase, J):
     # single precision: twice the SIMD width in the summation; the residual floor
     # (>= 1e-3 of the frame energy) keeps the cancellation error far below it
@@ -288,12 +298,7 @@ def pick_candidates(P, R, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, log2_
                 continue
             if g < G - 1 and low[g] >= low[g + 1]:
                 continue
-            e0 = _evidence(low[g], c0, half, pen_f)
-            if g > 0 and g < G - 1:
-                d, h = _parabolic(_evidence(low[g - 1], c0, half, pen_f), e0,
-                                  _evidence(low[g + 1], c0, half, pen_f))
-            else:
-                d, h = 0.0, e0
+            d, h = _peak(low, g, c0, half, pen_f)
             pos = n_found
             while pos > 0 and cand_ev[t, pos - 1] < h:
                 pos -= 1
@@ -321,12 +326,7 @@ def pick_candidates(P, R, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, log2_
             if abs(cand_f[t, j] - lf) < 2.5 * step:
                 dup = True
         if not dup:
-            e0 = _evidence(low[gbest], c0, half, pen_f)
-            if gbest > 0 and gbest < G - 1:
-                d, h = _parabolic(_evidence(low[gbest - 1], c0, half, pen_f), e0,
-                                  _evidence(low[gbest + 1], c0, half, pen_f))
-            else:
-                d, h = 0.0, e0
+            d, h = _peak(low, gbest, c0, half, pen_f)
             cand_f[t, n_found] = lf + d * step
             cand_ev[t, n_found] = h
             cand_o[t, n_found] = gbest
