@@ -14,16 +14,22 @@ kernel ``D(theta) = sin(N theta / 2) / sin(theta / 2)``:
 ``C_kl = (D((k-l)w) + D((k+l)w)) / 2`` and ``S_kl = (D((k-l)w) - D((k+l)w)) / 2``.
 The projections ``sum x cos(k w t)`` and ``sum x sin(k w t)`` for all ``k`` come
 from one interleaved Goertzel pass.  A Cholesky factor of each block, applied to
-the projections, gives the explained energy of *every* order ``L`` at once
-(nested least squares), so order selection by the MAP rule
+the projections, gives the explained energy of *every* order at once (nested
+least squares); the f0 is refined to the maximiser of the explained energy of a
+fixed order by three-point parabolic interpolation, which at a high SNR is the
+maximum-likelihood estimate, whose variance reaches the Cramér-Rao bound.
+
+At the refined f0 every order of the band is fitted over a whole number of
+periods, where the Gram blocks are diagonal up to the rounding of the length to
+whole samples: two Jacobi sweeps solve them, and the model order follows from
+the MAP rule
 
 .. math::
 
     \\hat L = \\arg\\min_L \\; \\frac{N}{2}\\ln \\hat\\sigma^2_L + L \\ln N + \\tfrac{3}{2}\\ln N
 
-costs one factorisation.  The f0 is refined to the maximiser of the explained
-energy by two rounds of three-point parabolic interpolation; at a high SNR this
-is the maximum-likelihood estimate, whose variance reaches the Cramér-Rao bound.
+with each harmonic then kept only where its own likelihood gain exceeds its
+penalty (absent harmonics get amplitude 0).
 
 References
 ----------
@@ -49,11 +55,6 @@ from numba import njit
 #: information about f0 together; a harmonic that is absent costs a little
 #: variance and no bias.
 MIN_REFINE_ORDER = 8
-
-#: The all-order fit stops adding harmonics once the MAP cost is this many nats
-#: above its best (about ten noise-only harmonics past the best order, so that a
-#: run of harmonics lost in noise between two formants does not end the fit).
-ORDER_STOP_NATS = 60.0
 
 #: Largest model order used while refining f0.  The harmonics above it add
 #: little precision (a few per cent of the Fisher information for a voice's
@@ -247,7 +248,7 @@ def _nested_energies(c, s, omega, N, L, energies):
     S = np.zeros((max(L, 1), max(L, 1)))
     u = np.zeros(L + 1)
     v = np.zeros(L + 1)
-    return _nested_fit(c, s, omega, N, L, energies, C, S, u, v, 1.0, 0.0, np.inf, L)
+    return _nested_fit(c, s, omega, N, L, energies, C, S, u, v)
 
 
 @njit(cache=True, fastmath=True)
@@ -271,21 +272,16 @@ def _chol_row(A, i):
 
 
 @njit(cache=True)
-def _nested_fit(c, s, omega, N, L, energies, C, S, u, v, R, pen_h, margin, min_order,
-                res_floor=0.0):
-    """Nested least squares for the orders ``0..L``, keeping the factors.
+def _nested_fit(c, s, omega, N, L, energies, C, S, u, v):
+    """Nested least squares for the orders ``0..L`` by a row-wise Cholesky factorisation.
 
-    The Cholesky factors of the cosine and sine Gram blocks and the
-    forward-solved projections grow one order at a time (row-wise), so order
-    ``l`` costs only what it adds.  Past ``min_order``, the growth stops once
-    the MAP cost ``N/2 ln(R - E_l) + l pen_h`` exceeds its best value so far by
-    ``margin`` nats: the orders above cannot win unless a harmonic far stronger
-    than the several before it appears.
-
-    On return ``C`` and ``S`` hold the factors, ``u`` (k = 0..) and ``v``
-    (k = 1..) the forward-solved projections, from which :func:`_amplitudes`
-    gets the amplitudes of any computed order.  Returns the highest order
-    computed (``energies[0..that]`` are valid).
+    The factors of the cosine and sine Gram blocks and the forward-solved
+    projections grow one order at a time, each order adding its energy:
+    ``energies[l]`` is the energy explained by the order-``l`` model.  ``C``,
+    ``S``, ``u``, ``v`` are scratch arrays for the factors and the solved
+    projections.  Returns the highest order whose Gram blocks stayed positive
+    definite (``< L`` when harmonics come too close to 0 or to the Nyquist
+    frequency for the frame length).
     """
     mask = np.ones(L + 1, dtype=np.bool_)
     _gram(omega, N, L, C, S, mask)
@@ -295,11 +291,6 @@ def _nested_fit(c, s, omega, N, L, energies, C, S, u, v, R, pen_h, margin, min_o
     u[0] = c[0] / C[0, 0]
     e = u[0] * u[0]
     energies[0] = e
-    q = math.exp(2.0 * pen_h / N)
-    stop = math.exp(2.0 * margin / N) if margin < 1e6 else np.inf
-    floor = max(R * 1e-12, res_floor)
-    best = max(R - e, floor)
-    qk = 1.0
     for l in range(1, L + 1):
         if not _chol_row(C, l) or not _chol_row(S, l - 1):
             return l - 1
@@ -313,38 +304,7 @@ def _nested_fit(c, s, omega, N, L, energies, C, S, u, v, R, pen_h, margin, min_o
         v[l] = val / S[l - 1, l - 1]
         e += u[l] * u[l] + v[l] * v[l]
         energies[l] = e
-        qk *= q
-        crit = max(R - e, floor) * qk
-        if crit < best:
-            best = crit
-        elif l >= min_order and crit > best * stop:
-            return l
     return L
-
-
-@njit(cache=True)
-def _amplitudes(C, S, u, v, L, amps):
-    """Amplitudes of the order-``L`` model from :func:`_nested_fit`'s factors.
-
-    Back substitution ``G^T a = u`` on the leading blocks (the leading block of a
-    Cholesky factor is the factor of the leading block).  ``amps[0]`` receives the
-    mean, ``amps[k]`` the amplitude ``sqrt(a_k^2 + b_k^2)`` of harmonic ``k``.
-    """
-    ac = np.empty(L + 1)
-    for i in range(L, -1, -1):
-        val = u[i]
-        for k in range(i + 1, L + 1):
-            val -= C[k, i] * ac[k]
-        ac[i] = val / C[i, i]
-    bs = np.empty(L + 1)
-    for i in range(L - 1, -1, -1):
-        val = v[i + 1]
-        for k in range(i + 1, L):
-            val -= S[k, i] * bs[k + 1]
-        bs[i + 1] = val / S[i, i]
-    amps[0] = ac[0]
-    for k in range(1, L + 1):
-        amps[k] = math.sqrt(ac[k] * ac[k] + bs[k] * bs[k])
 
 
 @njit(cache=True)

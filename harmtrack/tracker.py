@@ -20,12 +20,14 @@ from .result import Track
 
 __all__ = ["track_signal", "Analyzer", "estimate_frame", "EVIDENCE_OFFSET"]
 
-#: Evidence (nats) that a frame's best candidate must exceed before voicing is
-#: favoured: the typical maximum of the evidence over the f0 grid in frames of
-#: white noise alone (measured on the default grid; see tests/test_voicing.py).
+#: Evidence (approximate log Bayes factor, nats) at which a voiced candidate and
+#: the unvoiced state are equally likely before smoothing: zero, even odds.  In
+#: frames of white noise alone the best candidate's evidence stays below about
+#: -4 nats (99th percentile, default voice grid, measured), so the frequency
+#: penalty of the MAP rule already pays for searching many candidates.
 EVIDENCE_OFFSET = 0.0
 
-#: Residual floor of the approximate fit, relative to the frame energy (-20 dB):
+#: Residual floor of the approximate fit, relative to the frame energy (-30 dB):
 #: the model is never trusted to explain more than that.
 RESIDUAL_FLOOR = 10 ** -3.0
 
