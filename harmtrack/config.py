@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 
 from .errors import HarmtrackError
 
@@ -76,11 +76,10 @@ class TrackerConfig:
     grid_cents: float = 10.0
     n_candidates: int = 6
     smoothing: float = 1.0
-    glide_oct_s: float = 2.0
+    glide_oct_s: float = 0.5
     voiced_prior: float = 0.5
     voiced_run_s: float = 0.15
     prewhiten: bool = True
-    extra: dict = field(default_factory=dict, compare=False, hash=False)
 
     def __post_init__(self) -> None:
         for name in ("max_harmonics", "n_candidates", "analysis_sr"):
@@ -121,7 +120,6 @@ class TrackerConfig:
     def as_dict(self) -> dict:
         """Plain dict of the settings (for provenance headers)."""
         d = dataclasses.asdict(self)
-        d.pop("extra", None)
         d["frame_s"] = self.auto_frame_s
         return d
 
@@ -226,7 +224,7 @@ def make_config(preset: str = "voice", **overrides) -> TrackerConfig:
         raise HarmtrackError(
             f"unknown preset {preset!r}; choose one of: {', '.join(sorted(PRESETS))}"
         )
-    names = {f.name for f in dataclasses.fields(TrackerConfig)} - {"preset", "extra"}
+    names = {f.name for f in dataclasses.fields(TrackerConfig)} - {"preset"}
     values = dict(PRESETS[preset])
     for key, val in overrides.items():
         if key not in names:

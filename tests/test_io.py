@@ -24,7 +24,6 @@ SR = 16000
 def _harmonic_signal(sr=SR, dur=1.0, f0=(120.0, 180.0), n_harm=10, amp=0.5, pad_s=0.2):
     """A gliding harmonic tone with silent padding at both ends (unvoiced frames)."""
     n = int(round(dur * sr))
-    t = np.arange(n) / sr
     f = np.geomspace(f0[0], f0[1], n)
     phase = 2 * np.pi * np.cumsum(f) / sr
     y = sum(amp / k * np.sin(k * phase) for k in range(1, n_harm + 1)) / 2.0
