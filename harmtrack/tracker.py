@@ -147,6 +147,9 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
             f"{name}: audio of {y.size / sr * 1000:.1f} ms is shorter than one analysis frame "
             f"({rc.frame_len / rc.sr * 1000:.1f} ms); use a longer recording or a smaller frame_s"
         )
+    # A constant offset would turn into a step where the frames run past the ends
+    # of the recording (zeros outside): remove it.  Local offsets are fitted.
+    ya = ya - np.mean(ya)
     yw = ya
     gain = np.ones(2)
     if cfg.prewhiten:

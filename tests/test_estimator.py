@@ -272,6 +272,24 @@ def test_silence_is_unvoiced():
     assert np.all(np.isnan(tr.f0_hz))
 
 
+@pytest.mark.parametrize("level", [0.5, -0.25])
+def test_constant_signal_is_unvoiced(level):
+    # A constant has no period (common practice); nor may the ends of the
+    # recording, where frames run past it, pass for one.
+    tr = harmtrack.track(np.full(2 * SR, level), SR)
+    _check_track_consistency(tr)
+    assert not tr.voiced.any()
+
+
+def test_offset_does_not_move_the_pitch(cents):
+    y = synth.harmonic_tone(1.0, SR, f0_hz=180.0, amplitudes=[0.2, 0.1, 0.05], seed=2)
+    a = harmtrack.track(y, SR)
+    b = harmtrack.track(y + 0.3, SR)
+    both = a.voiced & b.voiced
+    assert both.mean() >= 0.95
+    assert np.max(np.abs(cents(b.f0_hz[both], a.f0_hz[both]))) < 0.01
+
+
 @pytest.mark.parametrize("seed", [0, 1, 2])
 def test_white_noise_is_unvoiced(seed):
     y = 0.1 * np.random.default_rng(seed).standard_normal(3 * SR)
