@@ -134,6 +134,21 @@ def _signal(name, y, *, min_len=1):
     return arr
 
 
+def _frame_series(times, values, name):
+    """Frame times (1-D, at least 2, strictly increasing) and per-frame ``values``."""
+    times = np.asarray(times, dtype=np.float64)
+    values = np.asarray(values, dtype=np.float64)
+    if times.ndim != 1 or times.size < 2:
+        raise HarmtrackError(
+            f"times must be a 1-D array of at least 2 frame times, got shape {times.shape}")
+    if values.shape != times.shape:
+        raise HarmtrackError(
+            f"{name} must have the same shape as times {times.shape}, got {values.shape}")
+    if not np.all(np.isfinite(times)) or np.any(np.diff(times) <= 0):
+        raise HarmtrackError("times must be finite and strictly increasing")
+    return times, values
+
+
 def _rng(seed, stream):
     """Independent generator number ``stream`` derived from ``seed``."""
     return np.random.default_rng(np.random.SeedSequence(seed).spawn(stream + 1)[stream])
@@ -433,16 +448,7 @@ def voice(times, f0, sr, *, seed=0, harmonics="all", formants="neutral",
         ``H = floor(0.45 * sr / min(voiced f0))`` (at least 1).
     """
     sr = _sample_rate(sr)
-    times = np.asarray(times, dtype=np.float64)
-    f0 = np.asarray(f0, dtype=np.float64)
-    if times.ndim != 1 or times.size < 2:
-        raise HarmtrackError(
-            f"times must be a 1-D array of at least 2 frame times, got shape {times.shape}")
-    if f0.shape != times.shape:
-        raise HarmtrackError(
-            f"f0 must have the same shape as times {times.shape}, got {f0.shape}")
-    if not np.all(np.isfinite(times)) or np.any(np.diff(times) <= 0):
-        raise HarmtrackError("times must be finite and strictly increasing")
+    times, f0 = _frame_series(times, f0, "f0")
     voiced_f = ~np.isnan(f0)
     fv = f0[voiced_f]
     f0_max = _MAX_HARMONIC_FRACTION * sr
