@@ -15,7 +15,11 @@ penalised-likelihood score with its own best order:
           + \\tfrac{3}{2}\\ln N_e\\Big]
 
 with ``R = sum(w x^2)`` the weighted frame energy and ``N_e = (sum w)^2 / sum(w^2)``
-the window's effective sample count.  ``ev`` is an approximate log Bayes factor
+the window's effective sample count.  The residual ``R - E_L`` actually used is
+``max(R - E_L, rho R) + mu E_L``: the floor ``rho`` and the mismatch share
+``mu`` (``tracker.RESIDUAL_FLOOR``, ``tracker.MISMATCH``) stop the approximate fit
+from claiming more precision than it has, which at a high SNR would otherwise
+let sub-harmonic combs win by soaking up leakage.  ``ev`` is an approximate log Bayes factor
 of "harmonic source at f" against "noise only": an absent fundamental costs one
 harmonic's penalty, a sub-octave pays for twice the amplitudes, an octave above
 loses the energy of the odd partials.  A compressed salience (sum of harmonic
@@ -144,7 +148,8 @@ def _frame_costs(p, r_tot, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, G,
 
     Returns ``low`` (G,), the smallest ``residual * exp(2 L pen_h / N_e)`` over the
     orders ``L`` (so that the evidence is ``(N_e/2) ln(R / low) - pen_f``), and
-    ``comp`` (G,), the compressed salience before normalisation.  Leaves the
+    ``comp`` (G,), the compressed salience (sum of harmonic magnitudes over the
+    first ``COMPRESSED_HARMONICS`` harmonics).  Leaves the
     frame's log-frequency spectrum in ``plog`` / ``mlog`` for :func:`_best_order`.
     """
     _log_spectrum(p, tab_idx, tab_w, n_phase, plog, mlog, lin, pooled)
