@@ -205,7 +205,7 @@ def _fast_length(n: int) -> int:
 PRESETS: dict[str, dict] = {
     # Speech: 50-800 Hz, 16 kHz analysis, ~50 ms frames.
     "voice": dict(fmin_hz=50.0, fmax_hz=800.0, analysis_sr=16000, search_sr=8000, max_harmonics=30,
-                  smoothing=1.0, glide_oct_s=0.5, voiced_run_s=0.15),
+                  smoothing=1.0, glide_oct_s=0.5, voiced_run_s=0.15, voiced_prior=0.7),
     # Singing: wider and higher range, vibrato and portamento move faster.
     "singing": dict(fmin_hz=60.0, fmax_hz=1600.0, analysis_sr=22050, max_harmonics=30,
                     smoothing=1.0, glide_oct_s=1.5, voiced_run_s=0.4),
