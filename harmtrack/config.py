@@ -119,7 +119,7 @@ class TrackerConfig:
 
     def as_dict(self) -> dict:
         """Plain dict of the settings (for provenance headers)."""
-        d = dataclasses.asdict(self)
+        d = {f.name: getattr(self, f.name) for f in dataclasses.fields(self)}
         d["frame_s"] = self.auto_frame_s
         return d
 

@@ -6,6 +6,8 @@ the (analysis-rate) signal; samples outside the signal count as zeros.
 
 from __future__ import annotations
 
+from functools import lru_cache
+
 import numpy as np
 from numba import njit
 
@@ -168,13 +170,16 @@ def analysis_window(frame_len: int, name: str = "hann") -> np.ndarray:
     F. J. Harris, "On the use of windows for harmonic analysis with the discrete
     Fourier transform", Proc. IEEE 66(1), 51-83, 1978.
     """
-    try:
-        coef = COSINE_WINDOWS[name]
-    except KeyError:
-        raise ValueError(f"unknown window {name!r}; choose one of {sorted(COSINE_WINDOWS)}") from None
+    if name not in COSINE_WINDOWS:
+        raise ValueError(f"unknown window {name!r}; choose one of {sorted(COSINE_WINDOWS)}")
+    return _cosine_window(int(frame_len), name).copy()
+
+
+@lru_cache(maxsize=32)
+def _cosine_window(frame_len: int, name: str) -> np.ndarray:
     phase = 2.0 * np.pi * np.arange(frame_len) / frame_len
     w = np.zeros(frame_len)
-    for m, a in enumerate(coef):
+    for m, a in enumerate(COSINE_WINDOWS[name]):
         w += (-1) ** m * a * np.cos(m * phase)
     return w
 
@@ -255,7 +260,7 @@ def noise_floor_psd(
     pick = np.unique(np.linspace(0, n_avail - 1, min(n_avail, max_frames)).round().astype(np.int64))
     ps, _ = windowed_spectra(y, pick * hop, analysis_window(frame_len), nfft, demean=False)
     tot = ps.sum(axis=1)
-    loud = ps[tot >= np.quantile(tot, 0.8)].mean(axis=0)
+    loud = ps[tot >= _low_order_stat(tot, 0.8, axis=0)].mean(axis=0)
     floor = _low_order_stat(ps, time_quantile, axis=0)
     # The running quantile over frequency works on every step-th bin (a few bins
     # per window suffice for a curve this smooth) and is interpolated back.
