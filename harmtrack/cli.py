@@ -150,9 +150,12 @@ def format_summary(track, *, source: str, output: str, fmt: str, seconds: float)
         f0_line = f"median {np.median(f0):.1f} Hz, range {f0.min():.1f} to {f0.max():.1f} Hz"
     else:
         f0_line = "no voiced frames"
+    rate = min(float(track.sr), float(track.settings.get("analysis_sr", track.sr)))
+    how = "" if rate == track.sr else " (resampled)"
     rows = [
         ("file", source),
         ("duration", f"{duration:.3f} s at {track.sr:g} Hz{ch}"),
+        ("analysis", f"{rate:g} Hz{how}, {track.frame_s * 1000:.0f} ms frames"),
         ("frames", f"{n_frames} every {track.hop_s * 1000:g} ms, {share:.1f} % voiced"),
         ("f0", f0_line),
         ("took", _fmt_seconds(seconds)),

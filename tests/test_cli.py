@@ -122,10 +122,11 @@ def test_summary_and_quiet(tmp_path, capsys, audio):
     assert code == 0
     lines = stdout.splitlines()
     keys = [ln.split()[0] for ln in lines]
-    assert keys == ["file", "duration", "frames", "f0", "took", "output"]
+    assert keys == ["file", "duration", "analysis", "frames", "f0", "took", "output"]
     assert str(audio["tone.wav"]) in lines[0]
     assert "1.400 s at 16000 Hz" in lines[1]
-    assert "% voiced" in lines[2] and "median" in lines[3] and "Hz" in lines[3]
+    assert "16000 Hz, 50 ms frames" in lines[2]  # analysed at its own rate
+    assert "% voiced" in lines[3] and "median" in lines[4] and "Hz" in lines[4]
     code, stdout, stderr = run(["track", audio["tone.wav"], "-o", out, "-q"], capsys)
     assert (code, stdout, stderr) == (0, "", "")
 
