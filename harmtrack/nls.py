@@ -62,7 +62,7 @@ MIN_REFINE_ORDER = 8
 #: amplitudes still use every harmonic in the band.
 MAX_REFINE_ORDER = 10
 
-__all__ = ["projections", "order_energies", "refine_f0", "select_order", "analyse_frame",
+__all__ = ["projections", "refine_f0", "select_order", "analyse_frame",
            "analyse_frames", "crlb_f0"]
 
 
@@ -228,22 +228,9 @@ def _gram(omega, N, L, C, S, mask):
 
 
 @njit(cache=True)
-def order_energies(x, omega, L, energies):
-    """Energy explained by the harmonic model of every order ``0..L`` at ``omega``.
-
-    ``energies[0]`` is the mean (DC) term alone.  Returns the highest order whose
-    Gram block stayed positive definite (``< L`` when harmonics get too close to
-    0 or to the Nyquist frequency for the frame length).
-    """
-    c = np.empty(L + 1)
-    s = np.empty(L + 1)
-    projections(x, omega, L, c, s)
-    return _nested_energies(c, s, omega, x.shape[0], L, energies)
-
-
-@njit(cache=True)
 def _nested_energies(c, s, omega, N, L, energies):
-    """:func:`order_energies` from precomputed projections ``c``, ``s`` (k = 0..L)."""
+    """Energy explained by every order ``0..L`` at ``omega``, from the projections
+    ``c``, ``s`` (k = 0..L); see :func:`_nested_fit`."""
     C = np.zeros((L + 1, L + 1))
     S = np.zeros((max(L, 1), max(L, 1)))
     u = np.zeros(L + 1)
@@ -305,17 +292,6 @@ def _nested_fit(c, s, omega, N, L, energies, C, S, u, v):
         e += u[l] * u[l] + v[l] * v[l]
         energies[l] = e
     return L
-
-
-@njit(cache=True)
-def _vertex(em, e0, ep, w, d):
-    """Abscissa of the parabola through (w-d, em), (w, e0), (w+d, ep), within 1.5 d of w."""
-    den = em - 2.0 * e0 + ep
-    if den < 0.0:
-        off = 0.5 * (em - ep) / den
-        off = min(1.5, max(-1.5, off))
-        return w + off * d
-    return w - d if em > ep else w + d
 
 
 @njit(cache=True)

@@ -18,7 +18,6 @@ __all__ = [
     "frame_energies",
     "analysis_window",
     "window_properties",
-    "power_spectra",
     "windowed_spectra",
     "noise_floor_psd",
     "whitening_filter",
@@ -224,17 +223,6 @@ def window_properties(w: np.ndarray, *, oversample: int = 64) -> dict:
     }
 
 
-def power_spectra(fr: np.ndarray, window: np.ndarray, nfft: int) -> np.ndarray:
-    """|FFT(window * frame)|^2 of each frame, bins 0 .. nfft/2.
-
-    Returns
-    -------
-    ndarray, shape (n_frames, nfft // 2 + 1)
-    """
-    spec = np.fft.rfft(fr * window[None, :], n=nfft, axis=1)
-    return spec.real**2 + spec.imag**2
-
-
 def noise_floor_psd(
     y: np.ndarray, sr: float, *, frame_len: int, nfft: int, max_frames: int = 60,
     time_quantile: float = 0.2, smooth_hz: float = 400.0,
@@ -250,7 +238,7 @@ def noise_floor_psd(
     Returns
     -------
     floor : ndarray, shape (nfft // 2 + 1,)
-        Power per bin, same scaling as :func:`power_spectra` with a Hann window.
+        Power per bin, same scaling as :func:`windowed_spectra` with a Hann window.
     loud : ndarray, shape (nfft // 2 + 1,)
         Mean power spectrum of the loudest fifth of the frames, same scaling:
         the level the floor is to be compared with.
