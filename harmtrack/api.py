@@ -7,7 +7,7 @@ import os
 from .audio import load
 from .config import make_config
 from .result import Track
-from .tracker import track_signal
+from .tracker import run
 
 __all__ = ["track", "track_file"]
 
@@ -23,7 +23,9 @@ def track(y, sr: float, preset: str = "voice", *, fmin=None, fmax=None, hop_s: f
     sr : float
         Sample rate in Hz (8 kHz to 192 kHz are routine; higher rates are resampled).
     preset : str
-        ``"voice"`` (speech, 50-800 Hz) or ``"singing"`` (60-1600 Hz); see
+        ``"voice"`` (speech, 50-800 Hz), ``"singing"`` (60-1600 Hz) or
+        ``"engine"`` (firing frequency of an engine; give ``cylinders=``, and
+        optionally ``strokes=`` (4 or 2), ``rpm_min=``, ``rpm_max=``); see
         :data:`harmtrack.PRESETS`.
     fmin, fmax : float, optional
         Search range of f0 in Hz; the preset's range when omitted.
@@ -37,7 +39,9 @@ def track(y, sr: float, preset: str = "voice", *, fmin=None, fmax=None, hop_s: f
     -------
     Track
         ``times``, ``f0_hz``, ``voiced``, ``voicing_prob``, ``harmonic_amplitudes``,
-        ``model_order``, ``hnr_db`` and the settings used.
+        ``model_order``, ``hnr_db`` and the settings used; engine presets add
+        ``rpm``, ``order_numbers``, ``order_amplitudes``, ``uneven_db`` and
+        ``uneven_flag`` (``f0_hz`` is then the firing frequency).
 
     Raises
     ------
@@ -57,7 +61,7 @@ def track(y, sr: float, preset: str = "voice", *, fmin=None, fmax=None, hop_s: f
     M. G. Christensen and A. Jakobsson, *Multi-Pitch Estimation*, Morgan & Claypool, 2009.
     """
     cfg = make_config(preset, fmin_hz=fmin, fmax_hz=fmax, hop_s=hop_s, **options)
-    return track_signal(y, sr, cfg)
+    return run(y, sr, cfg)
 
 
 def track_file(path: str | os.PathLike, preset: str = "voice", *, fmin=None, fmax=None,
@@ -69,6 +73,6 @@ def track_file(path: str | os.PathLike, preset: str = "voice", *, fmin=None, fma
     """
     cfg = make_config(preset, fmin_hz=fmin, fmax_hz=fmax, hop_s=hop_s, **options)
     y, sr, info = load(path)
-    tr = track_signal(y, sr, cfg, name=os.fspath(path))
+    tr = run(y, sr, cfg, name=os.fspath(path))
     tr.settings["input"] = info.as_dict()
     return tr

@@ -73,8 +73,8 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("-o", "--output", metavar="OUT", required=True,
                    help="label file to write; format from its extension: .csv, .npz or .json")
     p.add_argument("--preset", default="voice", metavar="NAME",
-                   help="settings preset: voice (speech, 50-800 Hz) or singing (60-1600 Hz); "
-                        "default: voice")
+                   help="settings preset: voice (speech, 50-800 Hz), singing (60-1600 Hz) or "
+                        "engine (needs --cylinders); default: voice")
     p.add_argument("--fmin", type=float, metavar="HZ", help="lowest f0 searched, Hz")
     p.add_argument("--fmax", type=float, metavar="HZ", help="highest f0 searched, Hz")
     p.add_argument("--hop", type=float, metavar="S", help="frame hop, seconds (default 0.01)")
@@ -88,13 +88,27 @@ def build_parser() -> argparse.ArgumentParser:
                    help="do not flatten the long-term noise spectrum before the fit")
     p.add_argument("--format", metavar="FMT", dest="fmt",
                    help="label format csv, npz or json (overrides the extension)")
+    e = p.add_argument_group("engine preset")
+    e.add_argument("--cylinders", type=int, metavar="N", help="number of cylinders, 1 to 24")
+    e.add_argument("--strokes", type=int, metavar="{2,4}",
+                   help="engine cycle: 4 (4-stroke, default) or 2 (2-stroke)")
+    e.add_argument("--rpm-min", type=float, metavar="RPM",
+                   help="lowest crankshaft speed searched (default 500)")
+    e.add_argument("--rpm-max", type=float, metavar="RPM",
+                   help="highest crankshaft speed searched (default 6500)")
+    e.add_argument("--max-order", type=int, metavar="N",
+                   help="highest engine order written (default 12)")
+    e.add_argument("--uneven-threshold", type=float, metavar="DB",
+                   help="uneven-firing flag threshold, dB of half-order re firing-order energy "
+                        "(default -12)")
     p.add_argument("-q", "--quiet", action="store_true", help="print no summary")
     p.set_defaults(func=cmd_track)
 
     d = sub.add_parser(
-        "demo", parents=[common], help="track the bundled demo recording and score it",
-        description="Track the bundled demo recording, write its labels to OUTDIR and "
-                    "compare them with the known true f0.",
+        "demo", parents=[common], help="track the bundled demo recordings and score them",
+        description="Track the bundled demo recordings (a voice, a healthy and a misfiring "
+                    "generator set), write their labels to OUTDIR and compare them with the "
+                    "known true f0 and rpm.",
     )
     d.add_argument("-o", "--output-dir", metavar="OUTDIR", default=DEFAULT_DEMO_DIR,
                    help="folder for the results, created if missing "
@@ -152,16 +166,40 @@ def format_summary(track, *, source: str, output: str, fmt: str, seconds: float)
         f0_line = "no voiced frames"
     rate = min(float(track.sr), float(track.settings.get("analysis_sr", track.sr)))
     how = "" if rate == track.sr else " (resampled)"
+    if track.is_engine:
+        f0_line = f0_line.replace("median", "firing median")
     rows = [
         ("file", source),
         ("duration", f"{duration:.3f} s at {track.sr:g} Hz{ch}"),
         ("analysis", f"{rate:g} Hz{how}, {track.frame_s * 1000:.0f} ms frames"),
         ("frames", f"{n_frames} every {track.hop_s * 1000:g} ms, {share:.1f} % voiced"),
         ("f0", f0_line),
+        *_engine_rows(track),
         ("took", _fmt_seconds(seconds)),
         ("output", f"{output} ({fmt})"),
     ]
     return "\n".join(f"{k:<10}{v}" for k, v in rows)
+
+
+def _engine_rows(track) -> list:
+    """Summary rows of an engine track: speed, uneven firing, strongest orders."""
+    if not track.is_engine:
+        return []
+    s = track.summary()
+    cfg = track.settings
+    head = f"{cfg.get('cylinders')} cylinders, {cfg.get('strokes')}-stroke"
+    if "rpm_mean" not in s:
+        return [("engine", head + "; no engine heard")]
+    thr = cfg.get("uneven_threshold_db")
+    rows = [
+        ("engine", head),
+        ("rpm", f"mean {s['rpm_mean']:.0f}, range {s['rpm_min']:.0f} to {s['rpm_max']:.0f}"),
+        ("uneven", f"{100.0 * s['flagged_fraction']:.1f} % of engine frames flagged "
+                   f"(index median {s.get('uneven_db_median', float('nan')):.1f} dB, "
+                   f"threshold {thr:g} dB)"),
+        ("orders", "strongest " + ", ".join(f"{q:g}" for q in s.get("strongest_orders", []))),
+    ]
+    return rows
 
 
 def format_scores(scores: dict) -> str:
@@ -188,6 +226,9 @@ def _track_options(args) -> dict:
         preset=args.preset, fmin=args.fmin, fmax=args.fmax, hop_s=args.hop,
         frame_s=args.frame, max_harmonics=args.max_harmonics, smoothing=args.smoothing,
         prewhiten=False if args.no_prewhiten else None,
+        cylinders=args.cylinders, strokes=args.strokes, rpm_min=args.rpm_min,
+        rpm_max=args.rpm_max, max_order=args.max_order,
+        uneven_threshold_db=args.uneven_threshold,
     )
 
 
@@ -286,7 +327,44 @@ def cmd_demo(args) -> int:
     print(format_summary(tr, source=os.fspath(wav), output=os.fspath(out), fmt="csv",
                          seconds=seconds))
     print(format_scores(scores))
+    _demo_engines(outdir)
     return EXIT_OK
+
+
+#: The engine demo's settings: the generator set of ``engine_synth.demo_engine``.
+DEMO_ENGINE = dict(preset="engine", cylinders=6, strokes=4, rpm_min=200.0, rpm_max=2000.0)
+
+
+def _demo_engines(outdir: Path) -> None:
+    """Track the healthy and the misfiring generator-set recordings and score the rpm."""
+    import numpy as np
+
+    from . import api
+    from .io import labels
+
+    bundled = _bundled_demo_dir()
+    for name in ("demo_engine", "demo_engine_misfire"):
+        wav, truth_csv = bundled / f"{name}.wav", bundled / "demo_engine_truth.csv"
+        if wav.is_file() and truth_csv.is_file():
+            truth = np.loadtxt(truth_csv, delimiter=",", comments="#", skiprows=2)
+            ref_t, ref_rpm = truth[:, 0], truth[:, 1]
+        else:
+            from . import engine_synth, synth
+
+            y, sr, tr_ = engine_synth.demo_engine(dead_cylinder=None if name == "demo_engine" else 2)
+            wav = synth.write_wav(outdir / f"{name}.wav", y, sr)
+            ref_t, ref_rpm = tr_["times"], tr_["rpm"]
+            print(f"demo recording regenerated as {wav}")
+        start = time.perf_counter()
+        tr = api.track_file(wav, **DEMO_ENGINE)
+        seconds = time.perf_counter() - start
+        out = labels.write_labels(tr, outdir / f"{name}.csv")
+        print()
+        print(format_summary(tr, source=os.fspath(wav), output=os.fspath(out), fmt="csv",
+                             seconds=seconds))
+        est = np.interp(ref_t, tr.times, tr.rpm)
+        within = np.abs(est / ref_rpm - 1.0) < 0.01
+        print(f"{'rpm within 1 % of the truth':<28}{100.0 * np.mean(within):.1f} % of frames")
 
 
 # ---------------------------------------------------------------------------

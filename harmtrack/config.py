@@ -18,6 +18,15 @@ from .errors import HarmtrackError
 __all__ = ["TrackerConfig", "ResolvedConfig", "PRESETS", "make_config"]
 
 
+#: Default flag threshold of the uneven-firing index, dB: the non-firing (half)
+#: order energy relative to the firing-order energy.  Measured on generated
+#: engines at 5 dB SNR: cylinders that differ by about 1 dB (a normal spread,
+#: common practice) give -16 to -21 dB (frame median); one dead cylinder raises
+#: the index to about -10 log10(C - 1) dB (-4.8 dB for 4 cylinders, -8.5 dB for
+#: 8); one cylinder at half strength (-6 dB) of a 4-cylinder engine to about -12 dB.
+UNEVEN_THRESHOLD_DB = -12.0
+
+
 @dataclass(frozen=True)
 class TrackerConfig:
     """Settings of the harmonic-model tracker.
@@ -62,6 +71,20 @@ class TrackerConfig:
         seconds (0.005 to 10); it sets the voicing switch cost independent of the hop.
     prewhiten : bool
         Flatten the long-term noise spectrum before the fit, for coloured noise.
+    cylinders : int or None
+        Engine presets only: number of cylinders, 1 to 24 (evenly firing).
+    strokes : int
+        Engine presets only: 4 (4-stroke) or 2 (2-stroke).
+    rpm_min, rpm_max : float or None
+        Engine presets only: crankshaft speed range in rpm; it sets ``fmin_hz``
+        and ``fmax_hz`` to the firing frequencies of these speeds (with a 5 %
+        margin).  ``rpm_min < rpm_max``, both in 10 to 100000.
+    max_order : int
+        Engine presets only: highest engine order reported, 1 to 100.
+    uneven_threshold_db : float
+        Engine presets only: the uneven-firing flag is raised where the
+        half-order energy relative to the firing-order energy exceeds this, dB
+        (-40 to 0; see :data:`harmtrack.machinery.UNEVEN_THRESHOLD_DB`).
     """
 
     preset: str = "custom"
@@ -80,8 +103,34 @@ class TrackerConfig:
     voiced_prior: float = 0.5
     voiced_run_s: float = 0.15
     prewhiten: bool = True
+    cylinders: int | None = None
+    strokes: int = 4
+    rpm_min: float | None = None
+    rpm_max: float | None = None
+    max_order: int = 12
+    uneven_threshold_db: float = UNEVEN_THRESHOLD_DB
+
+    @property
+    def is_engine(self) -> bool:
+        """True for engine settings (``cylinders`` given)."""
+        return self.cylinders is not None
 
     def __post_init__(self) -> None:
+        if self.cylinders is not None:
+            _check_int("cylinders", self.cylinders, 1, 24)
+            object.__setattr__(self, "cylinders", int(self.cylinders))
+        if isinstance(self.strokes, bool) or self.strokes not in (2, 4):
+            raise HarmtrackError(f"strokes={self.strokes!r} must be 2 or 4 (the engine cycle)")
+        object.__setattr__(self, "strokes", int(self.strokes))
+        for name in ("rpm_min", "rpm_max"):
+            if getattr(self, name) is not None:
+                _check_range(name, getattr(self, name), 10.0, 100000.0)
+        if self.rpm_min is not None and self.rpm_max is not None and not self.rpm_min < self.rpm_max:
+            raise HarmtrackError(
+                f"rpm_min={self.rpm_min:g} must be below rpm_max={self.rpm_max:g}")
+        _check_int("max_order", self.max_order, 1, 100)
+        object.__setattr__(self, "max_order", int(self.max_order))
+        _check_range("uneven_threshold_db", self.uneven_threshold_db, -40.0, 0.0)
         for name in ("max_harmonics", "n_candidates", "analysis_sr"):
             _check_int(name, getattr(self, name), 1, 10**6)
             object.__setattr__(self, name, int(getattr(self, name)))
@@ -137,12 +186,22 @@ class TrackerConfig:
         asr = float(self.analysis_sr) if sr > self.analysis_sr * 1.001 else sr
         nyq = asr / 2.0
         band = 0.95 * nyq if self.band_hz is None else min(float(self.band_hz), 0.95 * nyq)
+        if self.fmax_hz >= band and self.is_engine:
+            raise HarmtrackError(
+                f"rpm_max={self.rpm_max:g} fires at {self.fmax_hz / 1.05:.0f} Hz, too high for the "
+                f"analysed band of {band:.0f} Hz at {asr:g} Hz sampling; lower rpm_max"
+            )
         if self.fmax_hz >= band:
             raise HarmtrackError(
                 f"fmax={self.fmax_hz:g} Hz is not below the analysed band of {band:.0f} Hz "
                 f"at {asr:g} Hz sampling; lower fmax or use audio with a higher sample rate"
             )
         frame_s = self.auto_frame_s
+        if frame_s * self.fmin_hz < 1.5 and self.is_engine:
+            raise HarmtrackError(
+                f"rpm_min={self.rpm_min:g} fires at {self.fmin_hz / 0.95:.2f} Hz, which needs frames "
+                f"of at least {1.5 / self.fmin_hz:.2f} s (the limit is 1 s); raise rpm_min"
+            )
         if frame_s * self.fmin_hz < 1.5:
             raise HarmtrackError(
                 f"fmin={self.fmin_hz:g} Hz needs frames of at least {1.5 / self.fmin_hz * 1000:.0f} ms; "
@@ -209,7 +268,16 @@ PRESETS: dict[str, dict] = {
     # Singing: wider and higher range, vibrato and portamento move faster.
     "singing": dict(fmin_hz=60.0, fmax_hz=1600.0, analysis_sr=22050, max_harmonics=30,
                     smoothing=1.0, glide_oct_s=1.5, voiced_run_s=0.4),
+    # Engines: the firing-frequency range follows from cylinders, strokes and the rpm
+    # range; run-ups of thousands of rpm per second need a fast glide allowance.
+    "engine": dict(strokes=4, rpm_min=500.0, rpm_max=6500.0, analysis_sr=16000, search_sr=8000,
+                   max_harmonics=30, smoothing=1.0, glide_oct_s=3.0, voiced_run_s=1.0,
+                   voiced_prior=0.7),
 }
+
+#: Margin of the firing-frequency search range beyond the rpm range (common practice:
+#: a few per cent so that the range ends do not clip the track).
+ENGINE_RANGE_MARGIN = 0.05
 
 
 def make_config(preset: str = "voice", **overrides) -> TrackerConfig:
@@ -231,6 +299,27 @@ def make_config(preset: str = "voice", **overrides) -> TrackerConfig:
             raise HarmtrackError(f"unknown option {key!r}; known options: {', '.join(sorted(names))}")
         if val is not None:
             values[key] = val
+    engine_keys = ("cylinders", "strokes", "rpm_min", "rpm_max", "max_order", "uneven_threshold_db")
+    if preset != "engine":
+        given = [k for k in engine_keys if overrides.get(k) is not None]
+        if given:
+            raise HarmtrackError(f"{given[0]} applies only to the engine preset (preset='engine')")
+    if preset == "engine":
+        for key in ("fmin_hz", "fmax_hz"):
+            if overrides.get(key) is not None:
+                raise HarmtrackError(
+                    f"the engine preset sets the range from rpm: give rpm_min/rpm_max, not {key[:4]}")
+        if values.get("cylinders") is None:
+            raise HarmtrackError("the engine preset needs the number of cylinders (cylinders=N)")
+        probe = TrackerConfig(preset=preset, **values)  # validates cylinders, strokes, rpm
+        per_rpm = probe.cylinders / 60.0 / (probe.strokes // 2)
+        lowest = probe.rpm_min * per_rpm
+        if lowest * (1.0 - ENGINE_RANGE_MARGIN) * 1.0 < 1.5:  # frames are at most 1 s long
+            raise HarmtrackError(
+                f"rpm_min={probe.rpm_min:g} fires at {lowest:.3g} Hz, too slow to resolve with "
+                f"frames of at most 1 s; raise rpm_min")
+        values["fmin_hz"] = lowest * (1.0 - ENGINE_RANGE_MARGIN)
+        values["fmax_hz"] = probe.rpm_max * per_rpm * (1.0 + ENGINE_RANGE_MARGIN)
     return TrackerConfig(preset=preset, **values)
 
 

@@ -39,8 +39,23 @@ import numpy as np
 import scipy.signal
 
 from .errors import HarmtrackError
-from .synth import (_choice, _frame_series, _number, _rng, _sample_rate, _seed, _smoothstep,
-                    add_noise)
+from .machinery import (
+    _cycle_hz_per_rpm,
+    _cylinders,
+    _strokes,
+    firing_hz,
+    rpm_from_firing,
+)
+from .synth import (
+    _choice,
+    _frame_series,
+    _number,
+    _rng,
+    _sample_rate,
+    _seed,
+    _smoothstep,
+    add_noise,
+)
 
 __all__ = [
     "firing_hz",
@@ -54,8 +69,6 @@ __all__ = [
 # constants
 # ---------------------------------------------------------------------------
 
-_MAX_CYLINDERS = 24
-_STROKES = (2, 4)
 _PROFILE_KINDS = ("steady", "ramp", "genset")
 _NOISE_COLORS = ("white", "pink", "brown")
 _MAX_RPM = 100000.0  # far above any reciprocating engine; guards against unit mix-ups
@@ -101,121 +114,6 @@ _HIGHPASS_ORDER = 4  # Butterworth order of the optional high-pass, applied forw
 _ROLL_S = 0.5
 _CHUNK_VALUES = 2_000_000  # pulse samples placed per vectorised block (memory bound)
 _MAX_FIRING_FRACTION = 0.45  # firing frequency must stay below this fraction of sr
-
-
-# ---------------------------------------------------------------------------
-# validation helpers
-# ---------------------------------------------------------------------------
-
-
-def _cylinders(value):
-    if isinstance(value, bool) or not isinstance(value, numbers.Integral) \
-            or not 1 <= int(value) <= _MAX_CYLINDERS:
-        raise HarmtrackError(
-            f"cylinders must be an integer in [1, {_MAX_CYLINDERS}], got {value!r}")
-    return int(value)
-
-
-def _strokes(value):
-    if isinstance(value, bool) or not isinstance(value, numbers.Integral) \
-            or int(value) not in _STROKES:
-        raise HarmtrackError(f"strokes must be 2 or 4, got {value!r}")
-    return int(value)
-
-
-def _positive_array(name, value, unit):
-    """``value`` as float64 (scalar or array), all finite and > 0."""
-    try:
-        arr = np.asarray(value, dtype=np.float64)
-    except (TypeError, ValueError):
-        raise HarmtrackError(
-            f"{name} must be a positive number or array of them in {unit}, got {value!r}"
-        ) from None
-    bad = ~(np.isfinite(arr) & (arr > 0))
-    if isinstance(value, bool) or arr.size == 0 or np.any(bad):
-        shown = value if arr.ndim == 0 or arr.size == 0 else float(arr[bad][0])
-        raise HarmtrackError(
-            f"{name} must be a finite positive number (or array of them) in {unit}, "
-            f"got {shown!r}")
-    return arr
-
-
-def _scalar_out(arr, like):
-    return float(arr) if np.ndim(like) == 0 else arr
-
-
-def _cycle_hz_per_rpm(strokes):
-    """Engine cycles per second for one rpm: a cycle is 2 revolutions (4-stroke) or 1."""
-    return 1.0 / 60.0 / (strokes // 2)
-
-
-# ---------------------------------------------------------------------------
-# speed <-> firing frequency
-# ---------------------------------------------------------------------------
-
-
-def firing_hz(rpm, *, cylinders, strokes):
-    """Firing frequency of an evenly firing engine.
-
-    Every cylinder fires once per engine cycle, and a cycle lasts two
-    crankshaft revolutions for a 4-stroke engine and one for a 2-stroke
-    engine (common practice)::
-
-        4-stroke: firing_hz = rpm / 60 * cylinders / 2
-        2-stroke: firing_hz = rpm / 60 * cylinders
-
-    Parameters
-    ----------
-    rpm : float or array_like
-        Crankshaft speed in revolutions per minute, > 0.
-    cylinders : int, keyword-only
-        Number of cylinders, in [1, 24].
-    strokes : {2, 4}, keyword-only
-        Strokes per engine cycle.
-
-    Returns
-    -------
-    float or ndarray of float64
-        Firing frequency in Hz; a float for a scalar ``rpm``, else an array of
-        the shape of ``rpm``.
-
-    Examples
-    --------
-    >>> firing_hz(3000.0, cylinders=4, strokes=4)
-    100.0
-    """
-    cylinders = _cylinders(cylinders)
-    strokes = _strokes(strokes)
-    arr = _positive_array("rpm", rpm, "rpm")
-    return _scalar_out(arr * _cycle_hz_per_rpm(strokes) * cylinders, rpm)
-
-
-def rpm_from_firing(firing_hz, *, cylinders, strokes):
-    """Crankshaft speed of an evenly firing engine from its firing frequency.
-
-    The inverse of :func:`firing_hz`::
-
-        4-stroke: rpm = firing_hz * 60 * 2 / cylinders
-        2-stroke: rpm = firing_hz * 60 / cylinders
-
-    Parameters
-    ----------
-    firing_hz : float or array_like
-        Firing frequency in Hz, > 0.
-    cylinders : int, keyword-only
-        Number of cylinders, in [1, 24].
-    strokes : {2, 4}, keyword-only
-        Strokes per engine cycle.
-
-    Returns
-    -------
-    float or ndarray of float64
-        Speed in rpm; a float for a scalar input, else an array of its shape.
-    """
-    cylinders = _cylinders(cylinders)
-    strokes = _strokes(strokes)
-    arr = _positive_array("firing_hz", firing_hz, "Hz")
-    return _scalar_out(arr / (_cycle_hz_per_rpm(strokes) * cylinders), firing_hz)
 
 
 # ---------------------------------------------------------------------------
@@ -673,7 +571,7 @@ def engine(times, rpm, sr, *, cylinders=4, strokes=4, seed=0, cylinder_spread_db
 # ---------------------------------------------------------------------------
 
 
-def demo_engine(seed=0):
+def demo_engine(seed=0, *, dead_cylinder=None):
     """The engine demo scenario: a generator set starting up and taking a load.
 
     Six seconds at 16 kHz of a 6-cylinder 4-stroke engine following
@@ -689,6 +587,9 @@ def demo_engine(seed=0):
     ----------
     seed : int
         Seed of every random choice; the same seed gives identical samples.
+    dead_cylinder : int or None, keyword-only
+        Index (0 to 5) of a cylinder that does not fire at all (a misfire), or
+        None for a healthy engine.
 
     Returns
     -------
@@ -708,7 +609,7 @@ def demo_engine(seed=0):
     duration_s = 6.0
     times, rpm = rpm_profile(duration_s, kind="genset", hop_s=0.01, seed=seed)
     y, truth = engine(times, rpm, sr, cylinders=6, strokes=4, seed=seed + 1,
-                      cylinder_spread_db=1.0, highpass_hz=120.0, noise_snr_db=15.0,
+                      cylinder_spread_db=1.0, weak_cylinder=dead_cylinder, weak_db=-np.inf, highpass_hz=120.0, noise_snr_db=15.0,
                       noise_color="pink", amplitude=0.3, return_orders=True)
     truth.update(cylinders=6, strokes=4, snr_db=15.0, events=_genset_events(duration_s))
     return y, sr, truth

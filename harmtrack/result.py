@@ -47,6 +47,20 @@ class Track:
         Analysis frame length, seconds.
     settings : dict
         The settings the track was made with (see :class:`harmtrack.TrackerConfig`).
+    rpm : ndarray, shape (T,) or None
+        Engine presets: crankshaft speed from the firing frequency ``f0_hz``
+        (NaN where no engine is heard); None otherwise.
+    order_numbers : ndarray, shape (K,) or None
+        Engine presets: the engine orders of ``order_amplitudes`` columns
+        (0.5, 1, 1.5, ... for 4-stroke; 1, 2, ... for 2-stroke).
+    order_amplitudes : ndarray, shape (T, K) or None
+        Engine presets: linear peak amplitude of each engine order, from
+        computed order tracking (NaN where no engine or above the band).
+    uneven_db : ndarray, shape (T,) or None
+        Engine presets: uneven-firing index, energy of the non-firing (half)
+        orders relative to the firing orders, dB.
+    uneven_flag : ndarray of bool, shape (T,) or None
+        Engine presets: ``uneven_db`` above the threshold in a frame with an engine.
     """
 
     times: np.ndarray
@@ -59,6 +73,23 @@ class Track:
     sr: float
     frame_s: float
     settings: dict = field(default_factory=dict)
+    rpm: np.ndarray | None = None
+    order_numbers: np.ndarray | None = None
+    order_amplitudes: np.ndarray | None = None
+    uneven_db: np.ndarray | None = None
+    uneven_flag: np.ndarray | None = None
+
+    @property
+    def is_engine(self) -> bool:
+        """True for tracks made with an engine preset."""
+        return self.rpm is not None
+
+    def order_amplitudes_db(self, ref: float = 1.0) -> np.ndarray:
+        """Engine-order amplitudes in dB re ``ref`` (-inf where zero, NaN where unknown)."""
+        if self.order_amplitudes is None:
+            raise ValueError("this track has no engine orders (use an engine preset)")
+        with np.errstate(divide="ignore"):
+            return 20.0 * np.log10(self.order_amplitudes / ref)
 
     def __len__(self) -> int:
         return int(self.times.shape[0])
@@ -98,4 +129,25 @@ class Track:
         if f.size:
             out.update(f0_median_hz=float(np.median(f)), f0_min_hz=float(np.min(f)),
                        f0_max_hz=float(np.max(f)))
+        if self.is_engine:
+            out.update(self._engine_summary())
+        return out
+
+    def _engine_summary(self) -> dict:
+        v = self.voiced
+        r = self.rpm[v]
+        out = {"flagged_fraction": float(np.mean(self.uneven_flag[v])) if r.size else 0.0}
+        if r.size:
+            out.update(rpm_mean=float(np.mean(r)), rpm_min=float(np.min(r)),
+                       rpm_max=float(np.max(r)))
+            a = self.order_amplitudes[v]
+            fin = np.isfinite(a)
+            cnt = fin.sum(axis=0)
+            mean_pow = np.where(fin, a * a, 0.0).sum(axis=0) / np.maximum(cnt, 1)
+            ok = cnt > 0
+            order = np.argsort(-np.where(ok, mean_pow, -1.0))[:3]
+            out["strongest_orders"] = [float(self.order_numbers[j]) for j in order if ok[j]]
+            u = self.uneven_db[v]
+            if np.any(np.isfinite(u)):
+                out["uneven_db_median"] = float(np.nanmedian(u))
         return out

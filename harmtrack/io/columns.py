@@ -23,6 +23,11 @@ __all__ = [
     "columns_markdown",
     "track_table",
     "check_table",
+    "ENGINE_COLUMNS",
+    "order_name",
+    "table_columns",
+    "table_units",
+    "column_format",
 ]
 
 #: One row per column: (name, unit, meaning).  ``amp_h<k>`` stands for the
@@ -39,6 +44,61 @@ COLUMNS: tuple[tuple[str, str, str], ...] = (
      "0 where absent, nan where unvoiced or above the analysed band"),
 )
 
+#: Columns of engine tracks, after the harmonic amplitudes: (name, unit, meaning).
+#: ``order_<q>`` stands for ``order_0.5``, ``order_1``, ... (linear) and
+#: ``order_<q>_db`` for the same in dB.
+ENGINE_COLUMNS: tuple[tuple[str, str, str], ...] = (
+    ("rpm", "rpm", "crankshaft speed from the firing frequency f0_hz; nan where no engine"),
+    ("uneven_db", "dB", "uneven-firing index: non-firing (half) order energy re firing orders"),
+    ("uneven_flag", "0/1", "1 where uneven_db exceeds the threshold in a frame with an engine"),
+    ("order_<q>", "linear amplitude, full scale = 1",
+     "peak amplitude of engine order q (at q * rpm / 60 Hz); nan where no engine or above the band"),
+    ("order_<q>_db", "dB re full scale", "the same in dB (-inf where measured as zero)"),
+)
+_ENGINE_FIXED = ("rpm", "uneven_db", "uneven_flag")
+_ORDER_RE = re.compile(r"order_([0-9]+(?:\.5)?)(_db)?\Z")
+
+
+def order_name(q: float, db: bool = False) -> str:
+    """Column name of engine order ``q`` (``order_0.5``, ``order_2``...)."""
+    text = f"{q:g}"
+    return f"order_{text}_db" if db else f"order_{text}"
+
+
+def column_format(name: str) -> str:
+    """printf-style CSV format of a column."""
+    if name.startswith("amp_h"):
+        return CSV_FORMATS["amp"]
+    if name.startswith("order_"):
+        return "%.2f" if name.endswith("_db") else "%.6g"
+    return CSV_FORMATS[name]
+
+
+def _order_keys(table) -> list[float]:
+    return sorted({float(m.group(1)) for m in map(_ORDER_RE.match, table) if m is not None})
+
+
+def table_columns(table: dict) -> list[str]:
+    """Column names of a checked table, in file order."""
+    names = column_names(table["harmonic_amplitudes"].shape[1])
+    if "rpm" in table:
+        qs = _order_keys(table)
+        names += list(_ENGINE_FIXED) + [order_name(q) for q in qs] + [order_name(q, True) for q in qs]
+    return names
+
+
+def table_units(table: dict) -> dict[str, str]:
+    """``{column name: unit}`` of a checked table, in file order."""
+    units = column_units(table["harmonic_amplitudes"].shape[1])
+    eng = {name: unit for name, unit, _ in ENGINE_COLUMNS}
+    for name in table_columns(table)[len(units):]:
+        key = name
+        if name.startswith("order_"):
+            key = "order_<q>_db" if name.endswith("_db") else "order_<q>"
+        units[name] = eng[key]
+    return units
+
+
 #: The fixed columns, in file order, before the amplitude columns.
 BASE_COLUMNS: tuple[str, ...] = tuple(name for name, _, _ in COLUMNS[:-1])
 
@@ -51,6 +111,9 @@ CSV_FORMATS: dict[str, str] = {
     "model_order": "%d",
     "hnr_db": "%.2f",
     "amp": "%.6g",
+    "rpm": "%.2f",
+    "uneven_db": "%.2f",
+    "uneven_flag": "%d",
 }
 
 _FLOAT_COLUMNS = ("time_s", "f0_hz", "voicing_prob", "hnr_db")
@@ -114,6 +177,16 @@ def track_table(track) -> dict[str, np.ndarray]:
     for k in range(1, amps.shape[1] + 1):
         table[amp_name(k)] = amps[:, k - 1]
     table["harmonic_amplitudes"] = amps
+    if getattr(track, "rpm", None) is not None:
+        table["rpm"] = np.asarray(track.rpm, dtype=np.float64)
+        table["uneven_db"] = np.asarray(track.uneven_db, dtype=np.float64)
+        table["uneven_flag"] = np.asarray(track.uneven_flag, dtype=bool)
+        oa = np.asarray(track.order_amplitudes, dtype=np.float64)
+        with np.errstate(divide="ignore"):
+            oa_db = 20.0 * np.log10(oa)
+        for j, q in enumerate(np.asarray(track.order_numbers, dtype=np.float64)):
+            table[order_name(q)] = oa[:, j]
+            table[order_name(q, True)] = oa_db[:, j]
     return check_table(table, name="<track>")
 
 
@@ -146,6 +219,10 @@ def check_table(columns: dict, *, name: str) -> dict[str, np.ndarray]:
     if missing:
         raise HarmtrackError(f"{name}: missing column(s) {', '.join(missing)}")
     amp_ks = []
+    engine = {}
+    for key in list(given):
+        if key in _ENGINE_FIXED or _ORDER_RE.match(key):
+            engine[key] = given.pop(key)
     for key in given:
         if key in BASE_COLUMNS:
             continue
@@ -202,4 +279,31 @@ def check_table(columns: dict, *, name: str) -> dict[str, np.ndarray]:
                 f"amp_h columns (shape {amps.shape})"
             )
     out["harmonic_amplitudes"] = amps
+    if engine:
+        _check_engine(engine, out, n_rows, name)
     return out
+
+
+def _check_engine(engine: dict, out: dict, n_rows: int, name: str) -> None:
+    """Validate the engine columns of a table into ``out``."""
+    missing = [c for c in _ENGINE_FIXED if c not in engine]
+    if missing:
+        raise HarmtrackError(f"{name}: engine column(s) {', '.join(missing)} missing")
+    qs = _order_keys(engine)
+    for q in qs:
+        for db in (False, True):
+            if order_name(q, db) not in engine:
+                raise HarmtrackError(f"{name}: column {order_name(q, db)} missing")
+    for key, arr in engine.items():
+        try:
+            arr = np.asarray(arr, dtype=np.float64)
+        except (TypeError, ValueError):
+            raise HarmtrackError(f"{name}: column {key} holds non-numbers") from None
+        if arr.ndim != 1 or arr.shape[0] != n_rows:
+            raise HarmtrackError(
+                f"{name}: column {key} has shape {arr.shape}, expected ({n_rows},)")
+        out[key] = arr
+    f = out["uneven_flag"]
+    if not np.all((f == 0) | (f == 1)):
+        raise HarmtrackError(f"{name}: column uneven_flag must hold only 0 and 1")
+    out["uneven_flag"] = f.astype(bool)

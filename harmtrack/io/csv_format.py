@@ -20,7 +20,7 @@ import json
 import numpy as np
 
 from ..errors import HarmtrackError
-from .columns import CSV_FORMATS, column_names
+from .columns import column_format, table_columns
 from .provenance import dumps_compact
 
 __all__ = ["encode", "decode", "PROVENANCE_PREFIX"]
@@ -29,7 +29,7 @@ __all__ = ["encode", "decode", "PROVENANCE_PREFIX"]
 PROVENANCE_PREFIX = "# provenance: "
 
 
-def _units_line(n_harmonics: int) -> str:
+def _units_line(n_harmonics: int, engine: bool = False) -> str:
     amps = f"amp_h1..amp_h{n_harmonics}" if n_harmonics > 1 else "amp_h1"
     parts = [
         "time_s s", "f0_hz Hz (nan = unvoiced)", "voiced 0/1", "voicing_prob probability",
@@ -38,16 +38,19 @@ def _units_line(n_harmonics: int) -> str:
     if n_harmonics:
         parts.append(f"{amps} linear amplitude, full scale = 1 "
                      "(0 = absent, nan = unvoiced or above the band)")
+    if engine:
+        parts += ["rpm rpm", "uneven_db dB", "uneven_flag 0/1",
+                  "order_<q> linear amplitude of engine order q", "order_<q>_db dB re full scale"]
     return "# units: " + "; ".join(parts)
 
 
 def encode(table: dict, provenance: dict) -> bytes:
     """CSV bytes of a checked table (see :func:`harmtrack.io.columns.check_table`)."""
     n_h = table["harmonic_amplitudes"].shape[1]
-    names = column_names(n_h)
+    names = table_columns(table)
     cells = []
     for name in names:
-        fmt = CSV_FORMATS["amp"] if name.startswith("amp_h") else CSV_FORMATS[name]
+        fmt = column_format(name)
         values = table[name]
         if fmt == "%d":
             values = values.astype(np.int64)
@@ -56,7 +59,7 @@ def encode(table: dict, provenance: dict) -> bytes:
         f"# {provenance.get('tool', 'harmtrack')} {provenance.get('version', '')} "
         "f0 and harmonic-amplitude labels",
         PROVENANCE_PREFIX + dumps_compact(provenance),
-        _units_line(n_h),
+        _units_line(n_h, engine="rpm" in table),
         ",".join(names),
     ]
     rows = [",".join(row) for row in zip(*cells)]

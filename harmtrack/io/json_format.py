@@ -24,7 +24,7 @@ import json
 import math
 
 from ..errors import HarmtrackError
-from .columns import column_names, column_units
+from .columns import table_columns, table_units
 from .provenance import dumps_compact
 
 __all__ = ["encode", "decode"]
@@ -35,20 +35,19 @@ def _dump(obj) -> str:
 
 
 def _values(name: str, arr) -> list:
-    if name in ("voiced", "model_order"):
+    if name in ("voiced", "model_order", "uneven_flag"):
         return [int(v) for v in arr.tolist()]
     return [v if math.isfinite(v) else None for v in arr.tolist()]
 
 
 def encode(table: dict, provenance: dict) -> bytes:
     """JSON bytes of a checked table (see :func:`harmtrack.io.columns.check_table`)."""
-    n_h = table["harmonic_amplitudes"].shape[1]
-    names = column_names(n_h)
+    names = table_columns(table)
     frames = ",\n".join(f"  {_dump(n)}: {_dump(_values(n, table[n]))}" for n in names)
     text = (
         "{\n"
         f' "provenance": {dumps_compact(provenance)},\n'
-        f' "columns": {_dump(column_units(n_h))},\n'
+        f' "columns": {_dump(table_units(table))},\n'
         ' "frames": {\n'
         f"{frames}\n"
         " }\n"

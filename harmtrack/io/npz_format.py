@@ -19,7 +19,7 @@ import zipfile
 import numpy as np
 
 from ..errors import HarmtrackError
-from .columns import column_names
+from .columns import table_columns
 from .provenance import dumps_compact
 
 __all__ = ["encode", "decode"]
@@ -47,9 +47,11 @@ def encode(table: dict, provenance: dict) -> bytes:
     """NPZ bytes of a checked table (see :func:`harmtrack.io.columns.check_table`)."""
     amps = table["harmonic_amplitudes"]
     arrays = {}
-    for name in column_names(amps.shape[1]):
+    for name in table_columns(table):
         arrays[name] = table[name].astype("<f8")
     arrays["voiced"] = table["voiced"].astype(np.uint8)
+    if "uneven_flag" in table:
+        arrays["uneven_flag"] = table["uneven_flag"].astype(np.uint8)
     arrays["model_order"] = table["model_order"].astype("<i8")
     arrays["harmonic_amplitudes"] = amps.astype("<f8")
     arrays["provenance"] = np.array(dumps_compact(provenance))
