@@ -571,6 +571,22 @@ def engine(times, rpm, sr, *, cylinders=4, strokes=4, seed=0, cylinder_spread_db
 # ---------------------------------------------------------------------------
 
 
+_DEMO_WIND_SNR_DB = 12.0  # wind level re the engine, dB (a breezy day outdoors; chosen by ear)
+_GUST_STEP_S = 0.7  # a new gust level every this many seconds
+
+
+def _wind(y, sr, *, snr_db, seed):
+    """Gusty wind noise for ``y``: brown noise at ``snr_db`` re ``y`` times a gust envelope."""
+    rng = _rng(seed, 0)
+    noise = add_noise(y, snr_db, color="brown", seed=seed, ref="all") - y
+    n_knots = int(np.ceil(y.size / sr / _GUST_STEP_S)) + 2
+    knots = rng.uniform(0.2, 1.0, n_knots)
+    u = np.arange(y.size) / sr / _GUST_STEP_S
+    i = np.minimum(u.astype(np.int64), n_knots - 2)
+    env = knots[i] + (knots[i + 1] - knots[i]) * _smoothstep(u - i)
+    return noise * env / np.sqrt(np.mean(env ** 2))
+
+
 def demo_engine(seed=0, *, dead_cylinder=None):
     """The engine demo scenario: a generator set starting up and taking a load.
 
@@ -581,7 +597,10 @@ def demo_engine(seed=0, *, dead_cylinder=None):
     Cylinder gains spread by 1 dB, the default resonances, a 120 Hz
     zero-phase high-pass (the 75 Hz firing fundamental is about 33 dB down at
     rated speed, so the firing frequency is mostly heard through its
-    harmonics) and pink noise at 15 dB SNR. Nothing is written to disk.
+    harmonics), pink noise at 15 dB SNR (exhaust and engine-bay hiss) and wind
+    noise: brown (1/f**2) noise at 12 dB below the engine, swelling and fading in
+    gusts (a smooth random envelope between 0.2 and 1, new level every 0.7 s).
+    Nothing is written to disk.
 
     Parameters
     ----------
@@ -611,5 +630,6 @@ def demo_engine(seed=0, *, dead_cylinder=None):
     y, truth = engine(times, rpm, sr, cylinders=6, strokes=4, seed=seed + 1,
                       cylinder_spread_db=1.0, weak_cylinder=dead_cylinder, weak_db=-np.inf, highpass_hz=120.0, noise_snr_db=15.0,
                       noise_color="pink", amplitude=0.3, return_orders=True)
+    y = y + _wind(y, sr, snr_db=_DEMO_WIND_SNR_DB, seed=seed + 2)
     truth.update(cylinders=6, strokes=4, snr_db=15.0, events=_genset_events(duration_s))
     return y, sr, truth

@@ -100,7 +100,7 @@ def harmonic_tables(grid_hz: np.ndarray, *, df: float, band_hz: float,
     lmax = np.maximum(lmax, 1)
     gend = np.array([np.count_nonzero(lmax >= kk) for kk in k], dtype=np.int64)
     # every fine point read must exist
-    need = FINE_STEPS * (gend - 1 + h_shift) + h_phase
+    need = (FINE_STEPS * (gend - 1 + h_shift) + h_phase)[gend > 0]  # harmonics read at all
     J = max(J, int(need.max()) + 1)
     pos = grid_hz[0] * 2.0 ** (np.arange(J) * fine_c / 1200.0) / df
     sp_idx = np.maximum(np.round(pos).astype(np.int64), 1)

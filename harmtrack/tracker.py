@@ -114,6 +114,23 @@ def _noise_floor_var(y: np.ndarray) -> float:
     return float((np.max(np.abs(y)) * 10.0 ** (-NOISE_FLOOR_DB / 20.0)) ** 2)
 
 
+def _search(ys: np.ndarray, rs: ResolvedConfig, n_frames: int, noise_var: float):
+    """Candidates (log2 f, evidence, order; each (T, K)) of every frame of ``ys``."""
+    an = Analyzer.build(rs)
+    K = rs.cfg.n_candidates
+    cand_lf = np.empty((n_frames, K))
+    cand_ev = np.empty((n_frames, K))
+    cand_order = np.empty((n_frames, K), dtype=np.int64)
+    for b0 in range(0, n_frames, BLOCK_FRAMES):
+        nb = min(BLOCK_FRAMES, n_frames - b0)
+        starts = spectral.frame_starts(np.arange(b0, b0 + nb), rs.hop, rs.frame_len)
+        lf, ev, order, _ = an.candidates(ys, starts, noise_var=noise_var)
+        cand_lf[b0:b0 + nb] = lf
+        cand_ev[b0:b0 + nb] = ev
+        cand_order[b0:b0 + nb] = order
+    return cand_lf, cand_ev, cand_order
+
+
 def _emissions(cand_ev: np.ndarray, rc: ResolvedConfig) -> tuple[np.ndarray, np.ndarray]:
     """Voiced and unvoiced emission log-potentials from the candidates' evidence."""
     cfg = rc.cfg
@@ -172,20 +189,10 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
     # The candidate search may run on a decimated copy (TrackerConfig.search_sr).
     rs = rc.search()
     ys = yw if rs is rc else resample(yw, rc.sr, rs.sr)[0]
-    an = Analyzer.build(rs)
     noise_var = _noise_floor_var(ys)
-    K = cfg.n_candidates
-    cand_lf = np.empty((n_frames, K))
-    cand_ev = np.empty((n_frames, K))
-    cand_order = np.empty((n_frames, K), dtype=np.int64)
-    for b0 in range(0, n_frames, BLOCK_FRAMES):
-        nb = min(BLOCK_FRAMES, n_frames - b0)
-        starts = spectral.frame_starts(np.arange(b0, b0 + nb), rs.hop, rs.frame_len)
-        lf, ev, order, _ = an.candidates(ys, starts, noise_var=noise_var)
-        cand_lf[b0:b0 + nb] = lf
-        cand_ev[b0:b0 + nb] = ev
-        cand_order[b0:b0 + nb] = order
+    cand_lf, cand_ev, cand_order = _search(ys, rs, n_frames, noise_var)
     em_v, em_u = _emissions(cand_ev, rc)
+    K = cand_lf.shape[1]
     a, log_sw, log_stay = smoothing.transition_params(
         hop_s=cfg.hop_s, smoothing=cfg.smoothing, glide_oct_s=cfg.glide_oct_s,
         voiced_run_s=cfg.voiced_run_s,

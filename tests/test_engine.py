@@ -155,3 +155,15 @@ def test_cli_engine_end_to_end(tmp_path):
     bad = subprocess.run(cmd[:-6] + ["--cylinders", "30"], capture_output=True, text=True)
     assert bad.returncode == 2 and len(bad.stderr.strip().splitlines()) == 1
     assert "cylinders=30" in bad.stderr
+
+
+def test_largest_model_order_with_a_low_range():
+    # 100 harmonics of a 30 Hz grid point reach past the search band: the tables must
+    # stop at the band instead of reading past the spectrum.
+    t, r = es.rpm_profile(2.0, kind="steady", rpm=1500.0, hop_s=0.01)
+    y = es.engine(t, r, SR, cylinders=4, noise_snr_db=20.0)
+    tr = harmtrack.track(y, SR, preset="engine", cylinders=4, rpm_min=800, rpm_max=4000,
+                         max_harmonics=100)
+    assert abs(np.nanmedian(tr.rpm) / 1500.0 - 1) < 0.01
+    tr = harmtrack.track(y, SR, fmin=30.0, fmax=200.0, max_harmonics=100)
+    assert abs(np.nanmedian(tr.f0_hz) / 50.0 - 1) < 0.01  # 4 cylinders at 1500 rpm fire at 50 Hz
