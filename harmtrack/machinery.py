@@ -31,6 +31,7 @@ import math
 import numbers
 
 import numpy as np
+import scipy.ndimage
 from numba import njit
 
 from .config import UNEVEN_THRESHOLD_DB  # re-exported: the flag's default
@@ -183,13 +184,16 @@ def order_numbers(n: int, strokes: int) -> np.ndarray:
 # ---------------------------------------------------------------------------
 
 
-def jump_free_track(f_hz: np.ndarray, *, max_step_oct: float = 0.1) -> np.ndarray:
+def jump_free_track(f_hz: np.ndarray, *, max_step_oct: float = 0.1,
+                    median_frames: int = 1) -> np.ndarray:
     """A continuous, positive speed reference from a frame-rate track.
 
     Unvoiced frames are bridged by interpolation in log frequency; steps larger
     than ``max_step_oct`` octaves between neighbouring frames (a jump to another
     harmonic relation, not a change of speed) are removed, and the level is set
-    so that the median frame agrees with ``f_hz``.  The result follows the
+    so that the median frame agrees with ``f_hz``; then excursions shorter than
+    half of ``median_frames`` frames are removed by a running median (in log
+    frequency: a steady ramp passes unchanged).  The result follows the
     relative speed changes of the track; an angle-domain analysis along it sees a
     steady engine even where the track itself sat on the wrong multiple.
     """
@@ -202,6 +206,8 @@ def jump_free_track(f_hz: np.ndarray, *, max_step_oct: float = 0.1) -> np.ndarra
     d = np.diff(lf)
     d[np.abs(d) > max_step_oct] = 0.0
     c = np.concatenate([[0.0], np.cumsum(d)])
+    if median_frames > 1:
+        c = scipy.ndimage.median_filter(c, size=int(median_frames), mode="nearest")
     return 2.0 ** (c + np.median(lf[ok] - c[ok]))
 
 
@@ -273,7 +279,9 @@ def order_amplitudes(z: np.ndarray, sr: float, cycle_hz: float, centres: np.ndar
     ``k`` falls on DFT bin ``k * cycles`` and its neighbours on zeros of the
     window's transform: no leakage between orders.  The noise power per bin is
     estimated from the bins half-way between harmonics (median over the
-    window) and subtracted before the amplitude is taken.
+    window) and subtracted before the amplitude is taken.  Near the ends of
+    ``z`` the window is moved inwards so that it stays inside the signal; all
+    rows are NaN when ``z`` is shorter than one window.
 
     Parameters
     ----------
@@ -286,7 +294,8 @@ def order_amplitudes(z: np.ndarray, sr: float, cycle_hz: float, centres: np.ndar
     n_harmonics : int
         Cycle harmonics reported; those beyond ``0.95 * sr / 2`` are NaN.
     cycles : int
-        Engine cycles per window, >= 2.
+        Engine cycles per window, even and >= 4 (then the bins half-way between
+        harmonics, where the noise is read, also fall on zeros of the window).
 
     Returns
     -------
@@ -298,26 +307,31 @@ def order_amplitudes(z: np.ndarray, sr: float, cycle_hz: float, centres: np.ndar
     F. J. Harris, "On the use of windows for harmonic analysis with the discrete
     Fourier transform", Proc. IEEE 66(1), 1978 (Hann window zeros).
     """
-    n = int(round(cycles * sr / cycle_hz))
-    n = max(n, 4 * cycles)
-    w = np.hanning(n + 2)[1:-1]  # periodic-like Hann whose zeros fall on +-1 cycle bins
+    period = sr / cycle_hz  # samples per engine cycle
     k = np.arange(1, n_harmonics + 1)
-    bins = k * cycles * (n / (cycles * sr / cycle_hz))
-    ib = np.rint(bins).astype(np.int64)
+    centres = np.asarray(centres, dtype=np.float64)
+    return _cycle_spectrum_rows(np.asarray(z, dtype=np.float64), centres, period, int(cycles), k,
+                                sr, cycle_hz)
+
+
+def _cycle_spectrum_rows(z, centres, period, m, k, sr, cycle_hz):
+    """Noise-corrected amplitudes of cycle harmonics ``k`` over ``m`` cycles at each centre."""
+    n = max(int(round(m * period)), 4 * m)
+    out = np.full((centres.size, k.size), np.nan)
+    if n > z.size:
+        return out
+    w = np.hanning(n + 2)[1:-1]  # zeros of its transform fall on the neighbouring harmonics
+    per_bin = n / (m * period)  # DFT bins per "cycles" bin (1 up to rounding of n)
+    ib = np.rint(k * m * per_bin).astype(np.int64)
     valid = (k * cycle_hz < 0.475 * sr) & (ib < n // 2)
-    mid = np.rint((np.arange(n_harmonics) + 0.5) * cycles * n / (cycles * sr / cycle_hz)).astype(np.int64)
-    mid_ok = valid & (mid < n // 2)
-    out = np.full((centres.size, n_harmonics), np.nan)
+    mid = np.rint((k - 0.5) * m * per_bin).astype(np.int64)  # half-way between harmonics
+    mid = mid[valid & (mid < n // 2)]
     scale = 2.0 / w.sum()
-    zp = np.concatenate([np.zeros(n), z, np.zeros(n)])
     for i, c in enumerate(centres):
-        s = int(round(c)) - n // 2 + n
-        seg = zp[s:s + n]
-        X = np.fft.rfft(seg * w)
-        p = np.abs(X) ** 2
-        noise = float(np.median(p[mid[mid_ok]])) if np.any(mid_ok) else 0.0
-        pk = np.maximum(p[ib[valid]] - noise, 0.0)
-        out[i, valid] = scale * np.sqrt(pk)
+        s = min(max(int(round(c)) - n // 2, 0), z.size - n)
+        p = np.abs(np.fft.rfft(z[s:s + n] * w)) ** 2
+        noise = float(np.median(p[mid])) if mid.size else 0.0
+        out[i, valid] = scale * np.sqrt(np.maximum(p[ib[valid]] - noise, 0.0))
     return out
 
 

@@ -310,6 +310,37 @@ def estimate_frame(x, sr: float, *, fmin_hz: float, fmax_hz: float, max_harmonic
 # engines
 # ---------------------------------------------------------------------------
 
+#: Span of the running median that cleans the first track before it serves as the
+#: angle-domain reference, seconds: shorter excursions (a few frames on another
+#: harmonic relation) would otherwise bend the reference.
+ENGINE_REFERENCE_MEDIAN_S = 0.3
+
+
+#: Span of the running median over the uneven-firing index, seconds: one misfire
+#: lasts an engine cycle (0.15 s at 800 rpm, 4-stroke), so single frames where the
+#: order analysis is disturbed (a track error, a gust) do not raise the flag.
+ENGINE_INDEX_MEDIAN_S = 0.25
+
+
+def _running_median(x: np.ndarray, n: int) -> np.ndarray:
+    """Running median over ``n`` frames ignoring NaN (NaN stays NaN)."""
+    import scipy.ndimage
+
+    if n <= 1:
+        return x
+    ok = np.isfinite(x)
+    if not np.any(ok):
+        return x
+    filled = np.interp(np.arange(x.size), np.nonzero(ok)[0], x[ok])
+    out = scipy.ndimage.median_filter(filled, size=n, mode="nearest")
+    return np.where(ok, out, np.nan)
+
+
+def _odd(x: float) -> int:
+    """The odd integer nearest to ``x`` (at least 1)."""
+    return max(1, 2 * int(round((x - 1.0) / 2.0)) + 1)
+
+
 #: Engine cycles spanned by the angle-domain refinement frames and by the order
 #: analysis windows: enough to resolve the half orders, whatever the run-up rate.
 ENGINE_REFINE_CYCLES = 3.0
@@ -365,7 +396,7 @@ def track_engine(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
 
     # 2. refinement in the angle domain
     f1 = np.where(first.voiced, first.f0_hz, np.nan)
-    g = machinery.jump_free_track(f1)
+    g = machinery.jump_free_track(f1, median_frames=_odd(ENGINE_REFERENCE_MEDIAN_S / cfg.hop_s))
     z, f_ref, phase, stretch = machinery.angle_resample(ya, asr, times, g)
     band = min(rc.band_hz, 0.95 * asr / 2.0 / stretch)
     fmin2 = f_ref / ENGINE_REFINE_SPAN
@@ -397,6 +428,7 @@ def track_engine(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
     cyc[:, k * f_ref2 / C > min(rc.band_hz, 0.95 * asr / 2.0) / stretch2] = np.nan
     cyc[~first.voiced] = np.nan
     idx = machinery.uneven_index_db(cyc[:, :C * ENGINE_INDEX_FIRING_HARMONICS], C)
+    idx = _running_median(idx, _odd(ENGINE_INDEX_MEDIAN_S / cfg.hop_s))
     flag = first.voiced & (idx > cfg.uneven_threshold_db)
     H = cfg.max_harmonics
     harm = cyc[:, C - 1:C * H:C]
