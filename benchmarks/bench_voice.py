@@ -13,17 +13,12 @@ The script is a report: it always exits with status 0 and prints the number of
 failed floors on its last line.
 """
 
-# Single-threaded timing: the thread pools of the numeric libraries read these
-# variables when they are first imported, so they are set before numpy is.
-import os
-
-for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
-             "NUMBA_NUM_THREADS", "VECLIB_MAXIMUM_THREADS", "NUMEXPR_NUM_THREADS"):
-    os.environ[_var] = "1"
+import _single_thread  # noqa: F401, I001  (first: one thread before numpy loads)
 
 import argparse  # noqa: E402
 import importlib.util  # noqa: E402
 import json  # noqa: E402
+import os  # noqa: E402
 import platform  # noqa: E402
 import subprocess  # noqa: E402
 import sys  # noqa: E402
@@ -34,20 +29,12 @@ from pathlib import Path  # noqa: E402
 
 import numpy as np  # noqa: E402
 
-try:  # belt and braces: also cap pools that ignore the variables above
-    from threadpoolctl import threadpool_limits  # noqa: E402
-
-    _THREAD_LIMITER = threadpool_limits(1)
-except ImportError:  # pragma: no cover - optional
-    _THREAD_LIMITER = None
 
 import librosa  # noqa: E402
 import mir_eval  # noqa: E402
 import mir_eval.melody  # noqa: E402
 
-REPO = Path(__file__).resolve().parent.parent
-if str(REPO) not in sys.path:
-    sys.path.insert(0, str(REPO))
+REPO = _single_thread.REPO
 
 import harmtrack  # noqa: E402
 from harmtrack import synth  # noqa: E402
@@ -379,7 +366,7 @@ def main(argv=None):
     print(f"harmtrack {harmtrack.__version__} | librosa {librosa.__version__} | "
           f"mir_eval {mir_eval.__version__} | numpy {np.__version__} | "
           f"python {platform.python_version()} | {platform.machine()}")
-    print(f"threads: 1 (env vars{' + threadpoolctl' if _THREAD_LIMITER else ''}) | "
+    print(f"threads: 1 (env vars{' + threadpoolctl' if _single_thread.THREAD_LIMITER else ''}) | "
           f"load average {load[0]:.2f} on {os.cpu_count()} CPUs"
           + ("  << machine is busy: timings are unreliable"
              if load[0] > max(0.5, 0.25 * (os.cpu_count() or 1)) else ""))
