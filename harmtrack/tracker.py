@@ -18,7 +18,7 @@ from .config import ResolvedConfig, TrackerConfig
 from .errors import InputError
 from .result import Track
 
-__all__ = ["track_signal", "track_engine", "run", "Analyzer", "estimate_frame", "EVIDENCE_OFFSET"]
+__all__ = ["track_signal", "run", "Analyzer", "estimate_frame", "EVIDENCE_OFFSET"]
 
 #: Evidence (approximate log Bayes factor, nats) at which a voiced candidate and
 #: the unvoiced state are equally likely before smoothing: zero, even odds.  In
@@ -144,6 +144,8 @@ def _emissions(cand_ev: np.ndarray, rc: ResolvedConfig) -> tuple[np.ndarray, np.
 def run(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> Track:
     """The whole analysis the settings ask for: :func:`track_engine` for engines."""
     if cfg.is_engine:
+        from .engine_track import track_engine
+
         return track_engine(y, sr, cfg, name=name)
     return track_signal(y, sr, cfg, name=name)
 
@@ -304,136 +306,3 @@ def estimate_frame(x, sr: float, *, fmin_hz: float, fmax_hz: float, max_harmonic
                                 2.0 * np.pi * f / sr, int(order[0, 0]), lmax, lmax, pen_h,
                                 1.5 * pen_h, _noise_floor_var(x), amps)
     return w * sr / (2.0 * np.pi), int(L), amps
-
-
-# ---------------------------------------------------------------------------
-# engines
-# ---------------------------------------------------------------------------
-
-#: Span of the running median that cleans the first track before it serves as the
-#: angle-domain reference, seconds: shorter excursions (a few frames on another
-#: harmonic relation) would otherwise bend the reference.
-ENGINE_REFERENCE_MEDIAN_S = 0.3
-
-
-#: Span of the running median over the uneven-firing index, seconds: one misfire
-#: lasts an engine cycle (0.15 s at 800 rpm, 4-stroke), so single frames where the
-#: order analysis is disturbed (a track error, a gust) do not raise the flag.
-ENGINE_INDEX_MEDIAN_S = 0.25
-
-
-def _running_median(x: np.ndarray, n: int) -> np.ndarray:
-    """Running median over ``n`` frames ignoring NaN (NaN stays NaN)."""
-    import scipy.ndimage
-
-    if n <= 1:
-        return x
-    ok = np.isfinite(x)
-    if not np.any(ok):
-        return x
-    filled = np.interp(np.arange(x.size), np.nonzero(ok)[0], x[ok])
-    out = scipy.ndimage.median_filter(filled, size=n, mode="nearest")
-    return np.where(ok, out, np.nan)
-
-
-def _odd(x: float) -> int:
-    """The odd integer nearest to ``x`` (at least 1)."""
-    return max(1, 2 * int(round((x - 1.0) / 2.0)) + 1)
-
-
-#: Engine cycles spanned by the angle-domain refinement frames and by the order
-#: analysis windows: enough to resolve the half orders, whatever the run-up rate.
-ENGINE_REFINE_CYCLES = 3.0
-ENGINE_ORDER_CYCLES = 4
-
-#: Half-width (ratio) of the refinement's search range around the first track:
-#: narrower than an octave, so the refinement cannot step onto a sub-multiple.
-ENGINE_REFINE_SPAN = 1.45
-
-#: Cycle harmonics that enter the uneven-firing index: the firing orders up to
-#: this multiple of the firing frequency, and every non-firing order between.
-ENGINE_INDEX_FIRING_HARMONICS = 10
-
-
-def track_engine(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> Track:
-    """Firing frequency, rpm, engine orders and uneven firing of an engine recording.
-
-    1. The harmonic tracker follows the firing frequency in the firing range
-       of the rpm range, with frames of a few firing periods.
-    2. The recording is resampled along that track at equal crank-angle
-       increments (computed order tracking; jumps between harmonic relations
-       removed first), where the engine is a steady sound however fast it
-       accelerates; the tracker runs again there with frames of several engine
-       cycles and a search range of less than an octave around the first
-       track, which refines it and resolves the half orders.
-    3. Along the refined track the orders are measured over windows of whole
-       engine cycles (no leakage between orders, noise floor subtracted), and
-       the uneven-firing index compares the non-firing with the firing orders.
-
-    References
-    ----------
-    K. R. Fyfe and E. D. S. Munck, "Analysis of computed order tracking",
-    Mechanical Systems and Signal Processing 11(2), 1997.
-    """
-    from . import machinery
-
-    C = cfg.cylinders
-    first = track_signal(y, sr, cfg, name=name)
-    T = len(first)
-    per_rpm = machinery.firing_hz_per_rpm(cylinders=C, strokes=cfg.strokes)
-    K_out = int(round(cfg.max_order * cfg.strokes / 2))
-    orders = machinery.order_numbers(K_out, cfg.strokes)
-    if not np.any(first.voiced):
-        nan = np.full(T, np.nan)
-        return dataclasses.replace(
-            first, rpm=nan, order_numbers=orders, order_amplitudes=np.full((T, K_out), np.nan),
-            uneven_db=nan.copy(), uneven_flag=np.zeros(T, dtype=bool))
-    y = as_mono(y, name=name)
-    rc = cfg.resolve(float(sr))
-    ya, asr = (y, float(sr)) if rc.sr == float(sr) else resample(y, float(sr), rc.sr)
-    ya = ya - np.mean(ya)
-    times = first.times
-
-    # 2. refinement in the angle domain
-    f1 = np.where(first.voiced, first.f0_hz, np.nan)
-    g = machinery.jump_free_track(f1, median_frames=_odd(ENGINE_REFERENCE_MEDIAN_S / cfg.hop_s))
-    z, f_ref, phase, stretch = machinery.angle_resample(ya, asr, times, g)
-    band = min(rc.band_hz, 0.95 * asr / 2.0 / stretch)
-    fmin2 = f_ref / ENGINE_REFINE_SPAN
-    fmax2 = min(f_ref * ENGINE_REFINE_SPAN, band / 2.1)
-    frame2 = min(1.0, max(ENGINE_REFINE_CYCLES * C / f_ref, 2.5 / fmin2))
-    mean_stretch = (phase[-1] / f_ref) / (ya.size / asr)
-    cfg2 = dataclasses.replace(
-        cfg, cylinders=None, fmin_hz=fmin2, fmax_hz=max(fmax2, fmin2 * 1.01), frame_s=frame2,
-        prewhiten=False, band_hz=max(100.0, band), analysis_sr=int(max(asr, 4000)),
-        search_sr=None, hop_s=float(min(0.1, cfg.hop_s * mean_stretch)), glide_oct_s=0.2)
-    f = f1
-    if z.size > cfg2.auto_frame_s * asr and fmax2 > fmin2:
-        second = track_signal(z, asr, cfg2, name=name)
-        tau = phase[np.minimum((times * asr).astype(np.int64), phase.size - 1)] / f_ref
-        fz = np.interp(tau, second.times, second.f0_hz)  # NaN spreads to neighbours
-        refined = fz * g / f_ref
-        f = np.where(np.isfinite(refined), refined, f1)
-    f = np.where(first.voiced, f, np.nan)
-
-    # 3. orders along the refined track
-    g2 = machinery.jump_free_track(f)
-    z2, f_ref2, phase2, stretch2 = machinery.angle_resample(ya, asr, times, g2)
-    K_idx = max(K_out, C * ENGINE_INDEX_FIRING_HARMONICS, C * cfg.max_harmonics)
-    centres = phase2[np.minimum((times * asr).astype(np.int64), phase2.size - 1)] / f_ref2 * asr
-    cyc = machinery.order_amplitudes(z2, asr, f_ref2 / C, centres, n_harmonics=K_idx,
-                                     cycles=ENGINE_ORDER_CYCLES)
-    # harmonics above the band that is undistorted everywhere in z2 are unknown
-    k = np.arange(1, K_idx + 1)
-    cyc[:, k * f_ref2 / C > min(rc.band_hz, 0.95 * asr / 2.0) / stretch2] = np.nan
-    cyc[~first.voiced] = np.nan
-    idx = machinery.uneven_index_db(cyc[:, :C * ENGINE_INDEX_FIRING_HARMONICS], C)
-    idx = _running_median(idx, _odd(ENGINE_INDEX_MEDIAN_S / cfg.hop_s))
-    flag = first.voiced & (idx > cfg.uneven_threshold_db)
-    H = cfg.max_harmonics
-    harm = cyc[:, C - 1:C * H:C]
-    harm[~first.voiced] = np.nan
-    return dataclasses.replace(
-        first, f0_hz=f, rpm=f / per_rpm, harmonic_amplitudes=harm,
-        order_numbers=orders, order_amplitudes=cyc[:, :K_out],
-        uneven_db=np.where(first.voiced, idx, np.nan), uneven_flag=flag)
