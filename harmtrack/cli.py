@@ -1,4 +1,4 @@
-"""Command-line interface: ``harmtrack track`` and ``harmtrack demo``.
+"""Command-line interface: ``harmtrack track``, ``harmtrack batch`` and ``harmtrack demo``.
 
 The commands parse options, call the public API, write label files and
 report; they do no signal processing of their own.  Heavy modules are
@@ -51,43 +51,24 @@ def _common_options() -> argparse.ArgumentParser:
     return common
 
 
-def build_parser() -> argparse.ArgumentParser:
-    """The argument parser of the ``harmtrack`` command."""
-    common = _common_options()
-    parser = argparse.ArgumentParser(
-        prog=PROG,
-        description="Track the fundamental frequency (f0), voicing and harmonic amplitudes "
-                    "of harmonic sounds, frame by frame.",
-    )
-    parser.add_argument("--debug", action="store_true", help=_DEBUG_HELP)
-    parser.set_defaults(func=None)
-    parser.add_argument("--version", action="version", version=f"{PROG} {__version__}")
-    sub = parser.add_subparsers(title="commands", metavar="COMMAND")
-
-    p = sub.add_parser(
-        "track", parents=[common], help="track one audio file and write its labels",
-        description="Track one audio file and write one row per frame (time, f0, voicing, "
-                    "harmonic amplitudes...) to a label file.",
-    )
-    p.add_argument("input", metavar="IN", help="audio file (WAV, FLAC, OGG...)")
-    p.add_argument("-o", "--output", metavar="OUT", required=True,
-                   help="label file to write; format from its extension: .csv, .npz or .json")
-    p.add_argument("--preset", default="voice", metavar="NAME",
+def _tracker_options() -> argparse.ArgumentParser:
+    """The analysis options shared by ``track`` and ``batch``."""
+    p = argparse.ArgumentParser(add_help=False)
+    g = p.add_argument_group("analysis")
+    g.add_argument("--preset", default="voice", metavar="NAME",
                    help="settings preset: voice (speech, 50-800 Hz), singing (60-1600 Hz) or "
                         "engine (needs --cylinders); default: voice")
-    p.add_argument("--fmin", type=float, metavar="HZ", help="lowest f0 searched, Hz")
-    p.add_argument("--fmax", type=float, metavar="HZ", help="highest f0 searched, Hz")
-    p.add_argument("--hop", type=float, metavar="S", help="frame hop, seconds (default 0.01)")
-    p.add_argument("--frame", type=float, metavar="S",
+    g.add_argument("--fmin", type=float, metavar="HZ", help="lowest f0 searched, Hz")
+    g.add_argument("--fmax", type=float, metavar="HZ", help="highest f0 searched, Hz")
+    g.add_argument("--hop", type=float, metavar="S", help="frame hop, seconds (default 0.01)")
+    g.add_argument("--frame", type=float, metavar="S",
                    help="analysis frame length, seconds (default: from fmin)")
-    p.add_argument("--max-harmonics", type=int, metavar="N",
+    g.add_argument("--max-harmonics", type=int, metavar="N",
                    help="largest number of harmonics fitted (amplitude columns)")
-    p.add_argument("--smoothing", type=float, metavar="X",
+    g.add_argument("--smoothing", type=float, metavar="X",
                    help="strength of the pitch-continuity prior, 0 to 20")
-    p.add_argument("--no-prewhiten", action="store_true",
+    g.add_argument("--no-prewhiten", action="store_true",
                    help="do not flatten the long-term noise spectrum before the fit")
-    p.add_argument("--format", metavar="FMT", dest="fmt",
-                   help="label format csv, npz or json (overrides the extension)")
     e = p.add_argument_group("engine preset")
     e.add_argument("--cylinders", type=int, metavar="N", help="number of cylinders, 1 to 24")
     e.add_argument("--strokes", type=int, metavar="{2,4}",
@@ -101,8 +82,58 @@ def build_parser() -> argparse.ArgumentParser:
     e.add_argument("--uneven-threshold", type=float, metavar="DB",
                    help="uneven-firing flag threshold, dB of half-order re firing-order energy "
                         "(default -12)")
+    return p
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser of the ``harmtrack`` command."""
+    common = _common_options()
+    parser = argparse.ArgumentParser(
+        prog=PROG,
+        description="Track the fundamental frequency (f0), voicing and harmonic amplitudes "
+                    "of harmonic sounds, frame by frame.",
+    )
+    parser.add_argument("--debug", action="store_true", help=_DEBUG_HELP)
+    parser.set_defaults(func=None)
+    parser.add_argument("--version", action="version", version=f"{PROG} {__version__}")
+    sub = parser.add_subparsers(title="commands", metavar="COMMAND")
+
+    analysis = _tracker_options()
+    p = sub.add_parser(
+        "track", parents=[common, analysis], help="track one audio file and write its labels",
+        description="Track one audio file and write one row per frame (time, f0, voicing, "
+                    "harmonic amplitudes...) to a label file.",
+    )
+    p.add_argument("input", metavar="IN", help="audio file (WAV, FLAC, OGG...)")
+    p.add_argument("-o", "--output", metavar="OUT", required=True,
+                   help="label file to write; format from its extension: .csv, .npz or .json")
+    p.add_argument("--format", metavar="FMT", dest="fmt",
+                   help="label format csv, npz or json (overrides the extension)")
     p.add_argument("-q", "--quiet", action="store_true", help="print no summary")
     p.set_defaults(func=cmd_track)
+
+    b = sub.add_parser(
+        "batch", parents=[common, analysis], help="label every recording of a folder or manifest",
+        description="Label every recording of a folder (recursive) or manifest (CSV with a "
+                    "path column, or a list of paths): per-file labels mirroring the input's "
+                    "folders, one Parquet dataset of all frames, and a summary per file. "
+                    "Files already labelled with the same content and settings are skipped, "
+                    "so an interrupted batch resumes where it stopped.",
+    )
+    b.add_argument("input", metavar="IN", help="folder of audio files, or a manifest file")
+    b.add_argument("-o", "--output-dir", metavar="OUTDIR", required=True,
+                   help="folder for the labels, the dataset and the summary")
+    b.add_argument("--formats", metavar="FMTS", default="npz",
+                   help="per-file label formats, comma-separated: npz, csv, json (default npz)")
+    b.add_argument("--workers", type=int, metavar="N",
+                   help="worker processes (default: all cores)")
+    b.add_argument("--scheduler", metavar="ADDR",
+                   help="run on a Dask cluster: the scheduler's address (tcp://host:port) or "
+                        "scheduler file; 'local' starts a Dask cluster on this machine")
+    b.add_argument("--no-dataset", action="store_true",
+                   help="do not write the Parquet dataset of all frames")
+    b.add_argument("-q", "--quiet", action="store_true", help="no progress bar")
+    b.set_defaults(func=cmd_batch)
 
     d = sub.add_parser(
         "demo", parents=[common], help="track the bundled demo recordings and score them",
@@ -265,6 +296,63 @@ def cmd_track(args) -> int:
     return EXIT_OK
 
 
+def _progress_printer(stream):
+    """A progress callback drawing one line: files, audio hours, rate, ETA."""
+    tty = stream.isatty()
+    last = {"t": -1.0}
+
+    def show(done, total, audio_done, audio_total, elapsed):
+        if not tty and done < total and elapsed - last["t"] < 10.0:
+            return
+        last["t"] = elapsed
+        rate = audio_done / elapsed if elapsed > 0 else 0.0
+        eta = (audio_total - audio_done) / rate if rate > 0 else float("nan")
+        width = 24
+        filled = int(width * done / total) if total else width
+        bar = "#" * filled + "-" * (width - filled)
+        eta_text = "--:--" if eta != eta else f"{int(eta // 60):02d}:{int(eta % 60):02d}"
+        line = (f"[{bar}] {done}/{total} files, {audio_done / 3600:.3f} of "
+                f"{audio_total / 3600:.3f} h audio, ETA {eta_text}")
+        stream.write(("\r" + line) if tty else (line + "\n"))
+        if tty and done == total:
+            stream.write("\n")
+        stream.flush()
+
+    return show
+
+
+def cmd_batch(args) -> int:
+    """``harmtrack batch IN -o OUTDIR``."""
+    from . import batch
+
+    options = _track_options(args)
+    formats = [f.strip().lower() for f in args.formats.split(",") if f.strip()]
+    tasks = batch.plan_batch(args.input, args.output_dir, formats=formats, options=options)
+    if not tasks:
+        from .errors import HarmtrackError
+
+        raise HarmtrackError(f"{args.input}: no audio files found")
+    if args.workers is not None and not 1 <= args.workers <= 1024:
+        from .errors import HarmtrackError
+
+        raise HarmtrackError(f"--workers {args.workers}: give 1 to 1024")
+    progress = None if args.quiet else _progress_printer(sys.stderr)
+    rep = batch.run_batch(tasks, args.output_dir, workers=args.workers,
+                          scheduler=args.scheduler, dataset=not args.no_dataset,
+                          progress=progress)
+    c = rep.counts
+    speed = rep.audio_s / rep.seconds if rep.seconds > 0 else float("nan")
+    dataset = f"; dataset {rep.dataset}" if rep.dataset else ""
+    print(f"{len(tasks)} files: {c['ok']} labelled, {c['skipped']} up to date, "
+          f"{c['failed']} failed; {rep.audio_s / 3600:.3f} h of audio in "
+          f"{_fmt_seconds(rep.seconds)} ({speed:.0f} x real time){dataset}; "
+          f"summary {rep.summary}")
+    for rec in rep.records:
+        if rec and rec["status"] == "failed":
+            print(f"{PROG}: failed: {rec['name']}: {rec['error']}", file=sys.stderr)
+    return EXIT_USAGE if rep.failed else EXIT_OK
+
+
 def _refuse_overwriting_input(source: str, output: str) -> None:
     from .errors import HarmtrackError
 
@@ -409,7 +497,7 @@ def main(argv: list[str] | None = None) -> int:
         return exc.code if isinstance(exc.code, int) else EXIT_USAGE
     if args.func is None:
         parser.print_usage(sys.stderr)
-        print(f"{PROG}: error: a command is required (track or demo)", file=sys.stderr)
+        print(f"{PROG}: error: a command is required (track, batch or demo)", file=sys.stderr)
         return EXIT_USAGE
     from .errors import HarmtrackWarning
 

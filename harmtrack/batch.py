@@ -1,0 +1,317 @@
+"""Dataset labelling: every recording of a folder or manifest, resumably, in parallel.
+
+A batch is planned in the main process (inputs, output names, settings), run
+file by file by workers (local processes, or a Dask cluster), and assembled in
+the main process (the frame dataset and the per-file summary), always in input
+order, so that the bytes do not depend on the number of workers or on which
+worker did what.
+
+Resuming: each label file's provenance carries a *batch key*, the SHA-256 of the
+input's content, the settings, the label formats and the tool version.  A file
+whose labels exist with the same key is not tracked again.  Labels are written
+atomically, so a run killed at any moment leaves whole label files or none.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+import os
+import time
+from pathlib import Path
+
+import numpy as np
+
+from ._version import __version__
+from .batch_inputs import find_inputs, safe_output_base
+from .errors import HarmtrackError
+
+__all__ = ["Task", "plan_batch", "label_one", "run_batch", "BatchReport", "LABEL_FORMATS",
+           "DATASET_NAME", "SUMMARY_NAME"]
+
+#: Label formats a batch can write per file.
+LABEL_FORMATS = ("npz", "csv", "json")
+
+#: Names of the files a batch writes at the top of the output folder.
+DATASET_NAME = "frames.parquet"
+SUMMARY_NAME = "summary.csv"
+
+#: Summary columns, in file order.
+SUMMARY_COLUMNS = ("file_id", "name", "status", "error", "duration_s", "sample_rate", "channels",
+                   "frames", "voiced_share", "f0_median_hz", "f0_min_hz", "f0_max_hz", "seconds")
+
+
+@dataclasses.dataclass(frozen=True)
+class Task:
+    """One file's job, as sent to a worker (plain data, picklable)."""
+
+    file_id: int
+    path: str
+    name: str
+    out_base: str
+    formats: tuple
+    options: tuple  # sorted (key, value) pairs of harmtrack.track_file options
+
+
+def _options_key(options: dict) -> tuple:
+    return tuple(sorted((k, v) for k, v in options.items() if v is not None))
+
+
+def plan_batch(source, outdir, *, formats=("npz",), options: dict | None = None) -> list[Task]:
+    """The tasks of a batch: inputs found in ``source``, outputs under ``outdir``.
+
+    Raises
+    ------
+    HarmtrackError
+        No such input, an unknown label format, settings out of range (checked
+        here, before any work starts), or an output name outside ``outdir``.
+    """
+    from .config import make_config
+
+    formats = tuple(dict.fromkeys(formats))
+    bad = [f for f in formats if f not in LABEL_FORMATS]
+    if bad or not formats:
+        raise HarmtrackError(f"label format {bad[0] if bad else ''!r} unknown; choose from "
+                             f"{', '.join(LABEL_FORMATS)}")
+    opts = dict(options or {})
+    preset = opts.pop("preset", "voice")
+    make_config(preset, **{_CONFIG_NAMES.get(k, k): v for k, v in opts.items()})  # validates
+    opts["preset"] = preset
+    entries = find_inputs(source)
+    outdir = Path(outdir)
+    bases = _unique_bases([e.name for e in entries])
+    return [Task(file_id=i, path=e.path, name=e.name,
+                 out_base=os.fspath(safe_output_base(outdir, b)), formats=formats,
+                 options=_options_key(opts))
+            for i, (e, b) in enumerate(zip(entries, bases))]
+
+
+_CONFIG_NAMES = {"fmin": "fmin_hz", "fmax": "fmax_hz"}
+
+
+def _unique_bases(names: list[str]) -> list[str]:
+    """Label names: the input name without its extension, or with it where two would clash."""
+    stems = [os.path.splitext(n)[0] for n in names]
+    count: dict[str, int] = {}
+    for s in stems:
+        count[s] = count.get(s, 0) + 1
+    return [s + ".x" if count[s] == 1 else n + ".x" for s, n in zip(stems, names)]
+
+
+def _label_paths(task: Task) -> list[Path]:
+    base = Path(task.out_base)  # ends in ".x": the suffix is replaced by the format's
+    return [base.with_suffix("." + fmt) for fmt in task.formats]
+
+
+def batch_key(task: Task, input_sha256: str) -> str:
+    """SHA-256 of what a file's labels depend on: content, settings, formats, version."""
+    record = {"input": input_sha256, "options": [list(kv) for kv in task.options],
+              "formats": list(task.formats), "version": __version__}
+    return hashlib.sha256(json.dumps(record, sort_keys=True).encode()).hexdigest()
+
+
+def _existing_key(paths: list[Path]) -> str | None:
+    """The batch key all of ``paths`` carry, or None when one is missing or differs."""
+    from .io import read_labels
+
+    keys = set()
+    for p in paths:
+        if not p.is_file():
+            return None
+        try:
+            _, prov = read_labels(p)
+        except HarmtrackError:
+            return None
+        keys.add((prov.get("batch") or {}).get("key"))
+    return keys.pop() if len(keys) == 1 else None
+
+
+def label_one(task: Task) -> dict:
+    """Track one file and write its labels (runs in a worker).
+
+    Never raises for a bad input: the returned record has ``status`` ``"ok"``,
+    ``"skipped"`` (labels up to date) or ``"failed"`` with a one-line ``error``.
+    """
+    from . import api
+    from .audio import file_sha256
+    from .io import write_labels
+
+    start = time.perf_counter()
+    rec = {"file_id": task.file_id, "name": task.name, "status": "failed", "error": ""}
+    try:
+        digest = file_sha256(task.path)
+        key = batch_key(task, digest)
+        paths = _label_paths(task)
+        if _existing_key(paths) == key:
+            rec["status"] = "skipped"
+            return rec
+        opts = dict(task.options)
+        tr = api.track_file(task.path, **opts)
+        info = dict(tr.settings.get("input") or {})
+        info["path"] = task.name  # portable: the name inside the dataset, not this disk's path
+        prov = {"input": info, "batch": {"key": key, "name": task.name}}
+        paths[0].parent.mkdir(parents=True, exist_ok=True)
+        for p, fmt in zip(paths, task.formats):
+            write_labels(tr, p, fmt=fmt, provenance=prov)
+        rec["status"] = "ok"
+    except (HarmtrackError, OSError, MemoryError) as exc:
+        rec["error"] = " ".join(str(exc).split())
+    except Exception as exc:  # noqa: BLE001 - one bad file must not stop the batch
+        rec["error"] = f"internal error: {type(exc).__name__}: {' '.join(str(exc).split())}"
+    finally:
+        rec["seconds"] = time.perf_counter() - start
+    return rec
+
+
+# ---------------------------------------------------------------------------
+# running
+# ---------------------------------------------------------------------------
+
+
+@dataclasses.dataclass
+class BatchReport:
+    """What a batch did."""
+
+    tasks: list
+    records: list          # one per task, in task order
+    dataset: Path | None
+    summary: Path
+    seconds: float
+    audio_s: float
+
+    @property
+    def counts(self) -> dict:
+        out = {"ok": 0, "skipped": 0, "failed": 0}
+        for r in self.records:
+            out[r["status"]] += 1
+        return out
+
+    @property
+    def failed(self) -> int:
+        return self.counts["failed"]
+
+
+def _durations(tasks: list[Task]) -> np.ndarray:
+    """Durations in seconds from the file headers (0 where unreadable)."""
+    import soundfile as sf
+
+    out = np.zeros(len(tasks))
+    for i, t in enumerate(tasks):
+        try:
+            info = sf.info(t.path)
+            out[i] = info.frames / info.samplerate if info.samplerate else 0.0
+        except Exception:  # noqa: BLE001 - unreadable files fail later, with their error
+            out[i] = 0.0
+    return out
+
+
+def _clean_stale_temporaries(outdir: Path) -> None:
+    """Remove temporary files a killed run left (only ours, only inside ``outdir``)."""
+    for folder, _, files in os.walk(outdir):
+        for f in files:
+            if f.startswith(".") and f.endswith(".tmp"):
+                try:
+                    os.unlink(os.path.join(folder, f))
+                except OSError:
+                    pass
+
+
+def _run_local(tasks, workers, on_done):
+    if workers <= 1 or len(tasks) <= 1:
+        for t in tasks:
+            on_done(label_one(t))
+        return
+    import multiprocessing
+    from concurrent.futures import ProcessPoolExecutor, as_completed
+
+    ctx = multiprocessing.get_context("spawn")  # no inherited threads or locks
+    with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
+        futures = [pool.submit(label_one, t) for t in tasks]
+        for fut in as_completed(futures):
+            on_done(fut.result())
+
+
+def _run_dask(tasks, scheduler, workers, on_done):
+    try:
+        from distributed import Client, LocalCluster, as_completed
+    except ImportError:
+        raise HarmtrackError(
+            "the Dask engine needs dask's distributed scheduler: pip install 'dask[distributed]'"
+        ) from None
+    cluster = None
+    try:
+        if scheduler == "local":
+            cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
+                                   dashboard_address=None)
+            client = Client(cluster)
+        elif os.path.isfile(scheduler):
+            client = Client(scheduler_file=scheduler, timeout="10s")
+        else:
+            client = Client(scheduler, timeout="10s")
+    except (OSError, TimeoutError, ValueError) as exc:
+        if cluster is not None:
+            cluster.close()
+        raise HarmtrackError(f"cannot reach the Dask scheduler {scheduler}: {exc}") from None
+    try:
+        futures = client.map(label_one, tasks, pure=False)
+        for fut in as_completed(futures):
+            on_done(fut.result())
+    finally:
+        client.close()
+        if cluster is not None:
+            cluster.close()
+
+
+def run_batch(tasks: list[Task], outdir, *, workers: int | None = None,
+              scheduler: str | None = None, dataset: bool = True, progress=None) -> BatchReport:
+    """Run the tasks, then write the frame dataset and the summary.
+
+    Parameters
+    ----------
+    tasks : list of Task
+        From :func:`plan_batch`.
+    outdir : path
+        The output folder (created if missing).
+    workers : int, optional
+        Local worker processes (default: all cores); with ``scheduler="local"``
+        the number of Dask workers started.
+    scheduler : str, optional
+        ``None``: local processes.  ``"local"``: a Dask cluster on this machine.
+        Otherwise the address of a running Dask scheduler (``tcp://host:port``)
+        or the path of its scheduler file.
+    dataset : bool
+        Also write :data:`DATASET_NAME` (needs pyarrow).
+    progress : callable, optional
+        Called as ``progress(done, total, audio_done_s, audio_total_s, elapsed_s)``
+        after each file.
+    """
+    from .batch_output import read_results, write_dataset, write_summary
+
+    outdir = Path(outdir)
+    outdir.mkdir(parents=True, exist_ok=True)
+    _clean_stale_temporaries(outdir)
+    workers = int(workers or os.cpu_count() or 1)
+    durations = _durations(tasks)
+    records: list = [None] * len(tasks)
+    start = time.perf_counter()
+    state = {"done": 0, "audio": 0.0}
+
+    def on_done(rec):
+        i = rec["file_id"]
+        records[i] = rec
+        state["done"] += 1
+        state["audio"] += durations[i]
+        if progress is not None:
+            progress(state["done"], len(tasks), state["audio"], float(durations.sum()),
+                     time.perf_counter() - start)
+
+    if scheduler is None:
+        _run_local(tasks, workers, on_done)
+    else:
+        _run_dask(tasks, scheduler, workers, on_done)
+    results = read_results(tasks, records)
+    ds_path = write_dataset(outdir / DATASET_NAME, results) if dataset else None
+    summary = write_summary(outdir / SUMMARY_NAME, tasks, records, results)
+    return BatchReport(tasks=tasks, records=records, dataset=ds_path, summary=summary,
+                       seconds=time.perf_counter() - start, audio_s=float(durations.sum()))
