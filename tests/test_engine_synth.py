@@ -17,7 +17,13 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from harmtrack.engine_synth import demo_engine, engine, firing_hz, rpm_from_firing, rpm_profile
+from harmtrack.engine_synth import (
+    demo_engine,
+    engine,
+    firing_hz,
+    rpm_from_firing,
+    rpm_profile,
+)
 from harmtrack.errors import HarmtrackError
 
 SR = 16000
