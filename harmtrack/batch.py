@@ -132,10 +132,13 @@ def label_one(task: Task) -> dict:
 
     Never raises for a bad input: the returned record has ``status`` ``"ok"``,
     ``"skipped"`` (labels up to date) or ``"failed"`` with a one-line ``error``.
+    A labelled file's record also carries ``labels``: the columns and provenance
+    of its first label file, decoded from the written bytes, so that the main
+    process need not read the file back.
     """
     from . import api
     from .audio import file_sha256
-    from .io import write_labels
+    from .io import atomic_write_bytes, decode_labels, encode_labels
 
     start = time.perf_counter()
     rec = {"file_id": task.file_id, "name": task.name, "status": "failed", "error": ""}
@@ -152,8 +155,13 @@ def label_one(task: Task) -> dict:
         info["path"] = task.name  # portable: the name inside the dataset, not this disk's path
         prov = {"input": info, "batch": {"key": key, "name": task.name}}
         paths[0].parent.mkdir(parents=True, exist_ok=True)
-        for p, fmt in zip(paths, task.formats):
-            write_labels(tr, p, fmt=fmt, provenance=prov)
+        for i, (p, fmt) in enumerate(zip(paths, task.formats)):
+            data = encode_labels(tr, fmt=fmt, provenance=prov)
+            # no disk syncs: a file cut short by a power failure fails the next
+            # run's resume check (every label file is read back) and is redone
+            atomic_write_bytes(p, data, durable=False)
+            if i == 0:  # what the dataset reads, exactly as a later run would read it
+                rec["labels"] = decode_labels(data, fmt=fmt, name=os.fspath(p))
         rec["status"] = "ok"
     except (HarmtrackError, OSError, MemoryError) as exc:
         rec["error"] = " ".join(str(exc).split())
@@ -286,7 +294,7 @@ def run_batch(tasks: list[Task], outdir, *, workers: int | None = None,
         Called as ``progress(done, total, audio_done_s, audio_total_s, elapsed_s)``
         after each file.
     """
-    from .batch_output import read_results, write_dataset, write_summary
+    from .batch_output import DatasetWriter, file_stats, labels_of, write_summary
 
     outdir = Path(outdir)
     outdir.mkdir(parents=True, exist_ok=True)
@@ -295,23 +303,40 @@ def run_batch(tasks: list[Task], outdir, *, workers: int | None = None,
     durations = _durations(tasks)
     records: list = [None] * len(tasks)
     start = time.perf_counter()
-    state = {"done": 0, "audio": 0.0}
+    state = {"done": 0, "audio": 0.0, "next": 0}
+    writer = DatasetWriter(outdir / DATASET_NAME) if dataset else None
+
+    def finish_in_order():
+        # files are taken in input order, whatever order the workers finish in
+        while state["next"] < len(tasks) and records[state["next"]] is not None:
+            i = state["next"]
+            labels = labels_of(tasks[i], records[i])
+            if labels is not None:
+                records[i]["stats"] = file_stats(*labels)
+                if writer is not None:
+                    writer.add(tasks[i], *labels)
+            state["next"] += 1
 
     def on_done(rec):
         i = rec["file_id"]
         records[i] = rec
         state["done"] += 1
         state["audio"] += durations[i]
+        finish_in_order()
         if progress is not None:
             progress(state["done"], len(tasks), state["audio"], float(durations.sum()),
                      time.perf_counter() - start)
 
-    if scheduler is None:
-        _run_local(tasks, workers, on_done)
-    else:
-        _run_dask(tasks, scheduler, workers, on_done)
-    results = read_results(tasks, records)
-    ds_path = write_dataset(outdir / DATASET_NAME, results) if dataset else None
-    summary = write_summary(outdir / SUMMARY_NAME, tasks, records, results)
+    try:
+        if scheduler is None:
+            _run_local(tasks, workers, on_done)
+        else:
+            _run_dask(tasks, scheduler, workers, on_done)
+        ds_path = writer.close() if writer is not None else None
+    except BaseException:
+        if writer is not None:
+            writer.abort()
+        raise
+    summary = write_summary(outdir / SUMMARY_NAME, tasks, records)
     return BatchReport(tasks=tasks, records=records, dataset=ds_path, summary=summary,
                        seconds=time.perf_counter() - start, audio_s=float(durations.sum()))

@@ -12,6 +12,7 @@ from __future__ import annotations
 import csv
 import io
 import math
+import os
 from pathlib import Path
 
 import numpy as np
@@ -20,7 +21,7 @@ from .errors import HarmtrackError
 from .io.atomic import atomic_write_bytes
 from .io.provenance import dumps_compact
 
-__all__ = ["read_results", "write_dataset", "write_summary"]
+__all__ = ["DatasetWriter", "labels_of", "file_stats", "write_summary"]
 
 #: Parquet key-value metadata key of the dataset's provenance record.
 METADATA_KEY = b"harmtrack"
@@ -28,23 +29,43 @@ METADATA_KEY = b"harmtrack"
 _SKIP = {"harmonic_amplitudes"}
 
 
-def read_results(tasks, records) -> list:
-    """``(task, columns, provenance)`` of every file with labels, in task order."""
+def labels_of(task, rec):
+    """``(columns, provenance)`` of a finished file, or None when it has no labels.
+
+    A file labelled in this run brings its labels in its record; an up-to-date
+    one is read from its first label file.  A file whose labels cannot be read
+    back is marked failed.
+    """
     from .batch import _label_paths
     from .io import read_labels
 
-    out = []
-    for task, rec in zip(tasks, records):
-        if rec is None or rec["status"] not in ("ok", "skipped"):
-            continue
-        path = _label_paths(task)[0]
+    if rec is None or rec["status"] not in ("ok", "skipped"):
+        return None
+    labels = rec.pop("labels", None)
+    if labels is None:
         try:
-            cols, prov = read_labels(path)
+            labels = read_labels(_label_paths(task)[0])
         except HarmtrackError as exc:
             rec.update(status="failed", error=f"labels unreadable: {exc}")
-            continue
-        out.append((task, cols, prov))
-    return out
+            return None
+    return labels
+
+
+def file_stats(cols: dict, prov: dict) -> dict:
+    """Summary figures of one file's labels."""
+    v = cols["voiced"]
+    f = cols["f0_hz"][v]
+    info = prov.get("input") or {}
+    sr = info.get("sr")
+    frames = info.get("frames")
+    return {
+        "duration_s": frames / sr if sr and frames is not None else None,
+        "sample_rate": sr, "channels": info.get("channels"), "frames": int(v.size),
+        "voiced_share": float(v.mean()) if v.size else 0.0,
+        "f0_median_hz": float(np.median(f)) if f.size else None,
+        "f0_min_hz": float(f.min()) if f.size else None,
+        "f0_max_hz": float(f.max()) if f.size else None,
+    }
 
 
 def _arrow_table(task, cols):
@@ -65,41 +86,70 @@ def _arrow_table(task, cols):
     return pa.table(arrays)
 
 
-def write_dataset(path: Path, results) -> Path | None:
-    """All frames of all files as one Parquet file (written atomically).
+class DatasetWriter:
+    """All frames of all files as one Parquet file, written file by file.
 
     Columns: ``file_id`` (int32), ``name`` (dictionary-encoded string), then the
     label columns of :mod:`harmtrack.io.columns` (``time_s``, ``f0_hz``,
     ``voiced``, ``voicing_prob``, ``model_order``, ``hnr_db``, ``amp_h1`` ...,
     and the engine columns for engine presets).  The file's key-value metadata
     ``harmtrack`` holds the provenance: tool version, settings, and each file's
-    name, SHA-256 and batch key.  None when no file has labels.
+    name, SHA-256 and batch key.  Rows go to a temporary file next to ``path``,
+    renamed over it by :meth:`close`: a killed run leaves no partial dataset.
+    Memory holds one file's table at a time.
     """
-    try:
-        import pyarrow as pa
+
+    def __init__(self, path: Path):
+        try:
+            import pyarrow  # noqa: F401
+            import pyarrow.parquet  # noqa: F401
+        except ImportError:
+            raise HarmtrackError("the frame dataset needs pyarrow: pip install pyarrow") from None
+        self.path = Path(path)
+        self._tmp = self.path.with_name(f".{self.path.name}.writing.tmp")
+        self._writer = None
+        self._schema = None
+        self._files: list = []
+        self._head: dict = {}
+
+    def add(self, task, cols: dict, prov: dict) -> None:
+        """Append one file's frames (files must come in input order)."""
         import pyarrow.parquet as pq
-    except ImportError:
-        raise HarmtrackError("the frame dataset needs pyarrow: pip install pyarrow") from None
-    if not results:
-        return None
-    tables = [_arrow_table(task, cols) for task, cols, _ in results]
-    schema = tables[0].schema
-    for (task, _, _), t in zip(results, tables):
-        if not t.schema.equals(schema):
+
+        table = _arrow_table(task, cols)
+        if self._writer is None:
+            self._schema = table.schema
+            self._writer = pq.ParquetWriter(os.fspath(self._tmp), self._schema,
+                                            compression="zstd", use_dictionary=["name"])
+            self._head = {"tool": prov.get("tool"), "version": prov.get("version"),
+                          "settings": prov.get("settings")}
+        elif not table.schema.equals(self._schema):
             raise HarmtrackError(f"{task.name}: its label columns differ from the other files'")
-    first = results[0][2]
-    meta = {"tool": first.get("tool"), "version": first.get("version"),
-            "settings": first.get("settings"),
-            "files": [{"file_id": task.file_id, "name": task.name,
-                       "sha256": (prov.get("input") or {}).get("sha256"),
-                       "batch_key": (prov.get("batch") or {}).get("key")}
-                      for task, _, prov in results]}
-    schema = schema.with_metadata({METADATA_KEY: dumps_compact(meta).encode("ascii")})
-    buf = pa.BufferOutputStream()
-    with pq.ParquetWriter(buf, schema, compression="zstd", use_dictionary=["name"]) as writer:
-        for t in tables:
-            writer.write_table(t.replace_schema_metadata(schema.metadata))
-    return atomic_write_bytes(path, buf.getvalue().to_pybytes())
+        self._writer.write_table(table)
+        self._files.append({"file_id": task.file_id, "name": task.name,
+                            "sha256": (prov.get("input") or {}).get("sha256"),
+                            "batch_key": (prov.get("batch") or {}).get("key")})
+
+    def close(self) -> Path | None:
+        """Finish the file and put it in place; None when no file had frames."""
+        if self._writer is None:
+            return None
+        meta = dict(self._head, files=self._files)
+        self._writer.add_key_value_metadata({METADATA_KEY.decode(): dumps_compact(meta)})
+        self._writer.close()
+        self._writer = None
+        os.replace(self._tmp, self.path)
+        return self.path
+
+    def abort(self) -> None:
+        """Drop the partial file."""
+        if self._writer is not None:
+            self._writer.close()
+            self._writer = None
+        try:
+            os.unlink(self._tmp)
+        except OSError:
+            pass
 
 
 def _fmt(v) -> str:
@@ -110,25 +160,14 @@ def _fmt(v) -> str:
     return str(v)
 
 
-def write_summary(path: Path, tasks, records, results) -> Path:
-    """One row per input file (see :data:`harmtrack.batch.SUMMARY_COLUMNS`), atomically."""
+def write_summary(path: Path, tasks, records) -> Path:
+    """One row per input file (see :data:`harmtrack.batch.SUMMARY_COLUMNS`), atomically.
+
+    ``records`` carry each file's status, error, seconds and, where it has
+    labels, its :func:`file_stats` under ``"stats"``.
+    """
     from .batch import SUMMARY_COLUMNS
 
-    stats = {}
-    for task, cols, prov in results:
-        v = cols["voiced"]
-        f = cols["f0_hz"][v]
-        info = prov.get("input") or {}
-        sr = info.get("sr")
-        frames = info.get("frames")
-        stats[task.file_id] = {
-            "duration_s": frames / sr if sr and frames is not None else None,
-            "sample_rate": sr, "channels": info.get("channels"), "frames": int(v.size),
-            "voiced_share": float(v.mean()) if v.size else 0.0,
-            "f0_median_hz": float(np.median(f)) if f.size else None,
-            "f0_min_hz": float(f.min()) if f.size else None,
-            "f0_max_hz": float(f.max()) if f.size else None,
-        }
     buf = io.StringIO()
     w = csv.writer(buf, lineterminator="\n")
     w.writerow(SUMMARY_COLUMNS)
@@ -136,6 +175,6 @@ def write_summary(path: Path, tasks, records, results) -> Path:
         rec = rec or {"status": "failed", "error": "not run"}
         row = {"file_id": task.file_id, "name": task.name, "status": rec["status"],
                "error": rec.get("error", ""), "seconds": rec.get("seconds")}
-        row.update(stats.get(task.file_id, {}))
+        row.update(rec.get("stats") or {})
         w.writerow([_fmt(row.get(c)) for c in SUMMARY_COLUMNS])
     return atomic_write_bytes(path, buf.getvalue().encode("utf-8"))

@@ -110,7 +110,7 @@ def test_batch_end_to_end(tmp_path, dataset):
     assert sum(v == "ok" for v in status.values()) == N_GOOD
     # the dataset, read back with pyarrow, equals the per-file labels
     table = pq.read_table(out / batch.DATASET_NAME)
-    meta = json.loads(table.schema.metadata[b"harmtrack"])
+    meta = json.loads(pq.read_metadata(out / batch.DATASET_NAME).metadata[b"harmtrack"])
     assert len(meta["files"]) == N_GOOD and meta["settings"]["preset"] == "voice"
     names = table.column("name").to_pylist()
     for f in meta["files"][::7]:

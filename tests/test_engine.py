@@ -194,3 +194,18 @@ def test_order_amplitudes_of_a_known_periodic_signal():
     a = np.where(k % 4 == 0, 3.0, 1.0)[None, :]
     assert machinery.uneven_index_db(a, 4)[0] == pytest.approx(-10 * np.log10(3.0), abs=1e-9)
     assert np.isnan(machinery.uneven_index_db(a, 1)[0])
+
+
+def test_engine_labels_round_trip_in_every_format(tmp_path):
+    from harmtrack.io import write_labels
+
+    y, r = _engine(4, kind="steady", rpm=2000.0, dead=0, dur=1.5)
+    tr = harmtrack.track(y, SR, preset="engine", cylinders=4, rpm_min=800, rpm_max=4000,
+                         max_order=4)
+    back = {fmt: read_labels(write_labels(tr, tmp_path / f"e.{fmt}"))[0]
+            for fmt in ("npz", "csv", "json")}
+    assert set(back["npz"]) == set(back["csv"]) == set(back["json"])
+    np.testing.assert_array_equal(back["npz"]["order_1.5"], tr.order_amplitudes[:, 2])
+    np.testing.assert_array_equal(back["npz"]["uneven_flag"], tr.uneven_flag)
+    np.testing.assert_allclose(back["csv"]["rpm"], tr.rpm, atol=0.005)
+    np.testing.assert_allclose(back["csv"]["order_2_db"], back["npz"]["order_2_db"], atol=0.005)

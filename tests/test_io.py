@@ -193,8 +193,7 @@ def test_npz_layout_is_plain_numpy_and_dated_fixed(tmp_path):
     p = hio.write_labels(tr, tmp_path / "x.npz")
     with np.load(p, allow_pickle=False) as z:
         assert set(z.files) == {"time_s", "f0_hz", "voiced", "voicing_prob", "model_order",
-                                "hnr_db", "amp_h1", "amp_h2", "amp_h3",
-                                "harmonic_amplitudes", "provenance"}
+                                "hnr_db", "harmonic_amplitudes", "provenance"}
         np.testing.assert_array_equal(z["harmonic_amplitudes"], tr.harmonic_amplitudes)
         assert json.loads(str(z["provenance"]))["tool"] == "harmtrack"
         np.testing.assert_array_equal(z["voiced"], [0, 1, 1, 0])

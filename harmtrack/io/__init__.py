@@ -7,7 +7,14 @@ from __future__ import annotations
 
 from .atomic import atomic_write_bytes, check_destination
 from .columns import COLUMNS, column_names, column_units, columns_markdown
-from .labels import FORMATS, encode_labels, read_labels, resolve_format, write_labels
+from .labels import (
+                     FORMATS,
+                     decode_labels,
+                     encode_labels,
+                     read_labels,
+                     resolve_format,
+                     write_labels,
+)
 from .provenance import make_provenance
 from .reference import read_reference
 
@@ -19,6 +26,7 @@ __all__ = [
     "column_names",
     "column_units",
     "columns_markdown",
+    "decode_labels",
     "encode_labels",
     "make_provenance",
     "read_labels",

@@ -103,7 +103,7 @@ def encode_labels(track, *, fmt: str = "csv", provenance: dict | None = None) ->
 
 
 def write_labels(track, path: str | os.PathLike, *, fmt: str | None = None,
-                 provenance: dict | None = None) -> Path:
+                 provenance: dict | None = None, durable: bool = True) -> Path:
     """Write the frames of ``track`` to a label file, atomically.
 
     Parameters
@@ -118,6 +118,9 @@ def write_labels(track, path: str | os.PathLike, *, fmt: str | None = None,
     provenance : dict, optional
         Entries that replace or extend the provenance record built from the
         track (see the module documentation).
+    durable : bool
+        Sync the file and its folder to disk before returning (see
+        :func:`harmtrack.io.atomic.atomic_write_bytes`).
 
     Returns
     -------
@@ -133,7 +136,7 @@ def write_labels(track, path: str | os.PathLike, *, fmt: str | None = None,
     fmt = resolve_format(path, fmt)
     check_destination(path)
     data = encode_labels(track, fmt=fmt, provenance=provenance)
-    return atomic_write_bytes(path, data)
+    return atomic_write_bytes(path, data, durable=durable)
 
 
 def read_labels(path: str | os.PathLike, *, fmt: str | None = None) -> tuple[dict, dict]:
@@ -178,7 +181,12 @@ def read_labels(path: str | os.PathLike, *, fmt: str | None = None) -> tuple[dic
             fmt = _sniff(data)
     else:
         fmt = resolve_format(name, fmt)
-    columns, provenance = _CODECS[fmt][1](data, name=name)
+    return decode_labels(data, fmt=fmt, name=name)
+
+
+def decode_labels(data: bytes, *, fmt: str, name: str = "<labels>") -> tuple[dict, dict]:
+    """Columns and provenance of label-file bytes (what :func:`read_labels` returns)."""
+    columns, provenance = _CODECS[resolve_format(name, fmt)][1](data, name=name)
     return check_table(columns, name=name), provenance
 
 

@@ -1,0 +1,964 @@
+"""Batch benchmark: throughput, scaling and memory of ``harmtrack batch``.
+
+Run from the repository root::
+
+    python benchmarks/bench_batch.py [--quick] [--data DIR] [--repeats N] [--json OUT]
+                                     [--no-dask] [--no-breakdown]
+
+A speech-like corpus is synthesised once with :mod:`harmtrack.synth` and kept
+in ``--data`` (200 files of 10 s and 2000 files of 1 s, the same audio
+duration; ``--quick``: 40 x 10 s and 400 x 1 s).  The command-line tool
+``python -m harmtrack batch`` then labels it as a subprocess, into a fresh,
+empty output folder every time, so the wall time includes everything a user
+waits for (interpreter start-up, imports, worker start-up, numba cache loads,
+the per-file work and the assembly of the dataset and the summary):
+
+* the 10 s corpus with 1 local worker, 2 local workers, and a Dask cluster of
+  2 workers (a real scheduler and two workers started with dask's own
+  command-line tools on 127.0.0.1, ready before the clock starts);
+* the 1 s corpus with 2 local workers.
+
+The peak resident memory (VmHWM) of every process is sampled while it runs.
+A breakdown section measures where the time goes (interpreter and import,
+numba cache load in a fresh process, per-file stages, assembly).  See
+``benchmarks/README.md`` ("Batch benchmark") for the columns.
+
+The script is a report run by hand, not a test.  It exits with status 1 when a
+floor fails and 0 otherwise; its last line is the number of failed floors.
+"""
+
+import _single_thread  # noqa: F401, I001  (first: one thread before numpy loads)
+
+import argparse  # noqa: E402
+import csv  # noqa: E402
+import json  # noqa: E402
+import os  # noqa: E402
+import platform  # noqa: E402
+import re  # noqa: E402
+import shutil  # noqa: E402
+import socket  # noqa: E402
+import subprocess  # noqa: E402
+import sys  # noqa: E402
+import tempfile  # noqa: E402
+import threading  # noqa: E402
+import time  # noqa: E402
+from pathlib import Path  # noqa: E402
+
+import numpy as np  # noqa: E402
+
+REPO = _single_thread.REPO
+
+import harmtrack  # noqa: E402
+from harmtrack import synth  # noqa: E402
+
+try:
+    import psutil  # noqa: E402
+except ImportError:  # pragma: no cover - optional; /proc is read instead
+    psutil = None
+
+# ---------------------------------------------------------------------------
+# settings
+# ---------------------------------------------------------------------------
+
+SR = 16000
+HOP_S = 0.01
+
+#: (files, seconds per file) of the two corpora; both hold the same audio duration.
+LONG = (200, 10.0)
+SHORT = (2000, 1.0)
+QUICK_LONG = (40, 10.0)
+QUICK_SHORT = (400, 1.0)
+
+#: Base pitch of the synthetic speakers, Hz (file j speaks at SPEAKERS[j % 5]).
+SPEAKERS = (85.0, 140.0, 250.0, 110.0, 200.0)
+VOWELS = ("a", "e", "i", "o", "u", "neutral")
+JITTER = 0.005
+SHIMMER = 0.05
+AMPLITUDE = 0.5
+#: SNR in dB of the white noise added to file j: SNRS[j % 3].
+SNRS = (30.0, 20.0, 10.0)
+SEED_LONG = 20000
+SEED_SHORT = 40000
+#: Bumped whenever the corpus recipe changes, so a cached corpus is rebuilt.
+CORPUS_VERSION = 1
+CORPUS_MARKER = "corpus.json"
+
+PRESET = "voice"
+FORMATS = "npz"
+
+#: Floors from the project's issue (throughput = audio hours per wall hour).
+SCALING_FLOOR = 1.8     # 2 local workers >= this x 1 local worker
+SHORT_FILE_FLOOR = 0.70  # 1 s files >= this x 10 s files, both with 2 local workers
+
+#: A run during which other processes used more CPU than this (in cores, averaged
+#: over the run) is flagged: its timing is not that of an idle machine.
+OTHER_LOAD_WARN = 0.10
+RSS_POLL_S = 0.2  # sampling interval of the memory sampler
+RUN_TIMEOUT_S = 3600.0
+CLUSTER_TIMEOUT_S = 120.0
+
+SUMMARY_RE = re.compile(
+    r"(?P<files>\d+) files: (?P<ok>\d+) labelled, (?P<skipped>\d+) up to date, "
+    r"(?P<failed>\d+) failed; (?P<audio_h>[\d.]+) h of audio in (?P<seconds>[\d.]+) s "
+    r"\((?P<xrt>[\d.]+|nan) x real time\)")
+
+
+# ---------------------------------------------------------------------------
+# corpus
+# ---------------------------------------------------------------------------
+
+
+def render_file(seed, j, duration_s):
+    """One speech-like recording: a phrase contour, a source-filter voice, white noise."""
+    rng = np.random.default_rng(seed)
+    f0_base = SPEAKERS[j % len(SPEAKERS)]
+    n_vowels = max(1, int(round(duration_s / 0.5)))
+    vowels = tuple(rng.choice(VOWELS, size=n_vowels))
+    times, f0 = synth.f0_contour(duration_s, hop_s=HOP_S, kind="phrase", f0_hz=f0_base,
+                                 seed=seed)
+    y = synth.voice(times, f0, SR, seed=seed, formants=vowels if len(vowels) > 1 else vowels[0],
+                    unvoiced="breath", jitter=JITTER, shimmer=SHIMMER, amplitude=AMPLITUDE)
+    return synth.add_noise(y, SNRS[j % len(SNRS)], color="white", seed=seed + 1, ref="active")
+
+
+def corpus_recipe(n_files, duration_s, seed_base):
+    return {"version": CORPUS_VERSION, "harmtrack": harmtrack.__version__, "sr": SR,
+            "files": n_files, "duration_s": duration_s, "seed_base": seed_base,
+            "speakers": list(SPEAKERS), "snrs_db": list(SNRS), "jitter": JITTER,
+            "shimmer": SHIMMER, "amplitude": AMPLITUDE}
+
+
+def ensure_corpus(folder, n_files, duration_s, seed_base):
+    """Build the corpus in ``folder`` unless a complete one with the same recipe is there.
+
+    Returns (folder, seconds spent building, whether it was reused).
+    """
+    folder = Path(folder)
+    recipe = corpus_recipe(n_files, duration_s, seed_base)
+    marker = folder / CORPUS_MARKER
+    names = [f"utt_{j:05d}.wav" for j in range(n_files)]
+    if marker.is_file():
+        try:
+            same = json.loads(marker.read_text()) == recipe
+        except (OSError, ValueError):
+            same = False
+        on_disk = sorted(p.name for p in folder.iterdir() if p.suffix == ".wav")
+        if same and on_disk == names:
+            return folder, 0.0, True
+    t0 = time.perf_counter()
+    folder.mkdir(parents=True, exist_ok=True)
+    if marker.exists():
+        marker.unlink()
+    for p in folder.iterdir():  # only our own files: a stale or partial corpus
+        if p.name.startswith("utt_") and p.suffix == ".wav":
+            p.unlink()
+    for j, name in enumerate(names):
+        synth.write_wav(folder / name, render_file(seed_base + j, j, duration_s), SR)
+    marker.write_text(json.dumps(recipe, indent=1) + "\n")  # written last: marks it complete
+    return folder, time.perf_counter() - t0, False
+
+
+# ---------------------------------------------------------------------------
+# processes and memory
+# ---------------------------------------------------------------------------
+
+
+def child_env():
+    """The benchmark's environment (one thread per process), with the checkout importable."""
+    env = os.environ.copy()
+    env["PYTHONPATH"] = os.pathsep.join(p for p in (str(REPO), env.get("PYTHONPATH")) if p)
+    return env
+
+
+def _proc_status_kb(pid, field):
+    try:
+        with open(f"/proc/{pid}/status") as f:
+            for line in f:
+                if line.startswith(field + ":"):
+                    return int(line.split()[1])
+    except (OSError, ValueError, IndexError):
+        return None
+    return None
+
+
+def _cmdline(pid):
+    try:
+        with open(f"/proc/{pid}/cmdline", "rb") as f:
+            return f.read().replace(b"\0", b" ").decode("utf-8", "replace").strip()
+    except OSError:
+        if psutil is not None:
+            try:
+                return " ".join(psutil.Process(pid).cmdline())
+            except psutil.Error:
+                return ""
+        return ""
+
+
+def _children(pid):
+    """Descendants of ``pid`` (psutil, else a walk of /proc)."""
+    if psutil is not None:
+        try:
+            return [c.pid for c in psutil.Process(pid).children(recursive=True)]
+        except psutil.Error:
+            return []
+    parents = {}
+    for d in os.listdir("/proc"):
+        if d.isdigit():
+            ppid = _proc_status_kb(int(d), "PPid")
+            if ppid is not None:
+                parents.setdefault(ppid, []).append(int(d))
+    out, todo = [], [pid]
+    while todo:
+        kids = parents.get(todo.pop(), [])
+        out += kids
+        todo += kids
+    return out
+
+
+def _peak_kb(pid):
+    """The kernel's high-water mark of the resident set (VmHWM), else the current RSS."""
+    kb = _proc_status_kb(pid, "VmHWM")
+    if kb is None and psutil is not None:
+        try:
+            kb = psutil.Process(pid).memory_info().rss // 1024
+        except psutil.Error:
+            kb = None
+    return kb
+
+
+def machine_busy_s():
+    """CPU seconds the whole machine has spent busy since boot (all CPUs, /proc/stat)."""
+    try:
+        with open("/proc/stat") as f:
+            v = [int(x) for x in f.readline().split()[1:]]
+    except (OSError, ValueError):
+        return None
+    idle = v[3] + (v[4] if len(v) > 4 else 0)  # idle + iowait
+    return (sum(v[:8]) - idle) / os.sysconf("SC_CLK_TCK")
+
+
+def _cpu_s(pid):
+    """User + system CPU seconds of one process so far (/proc/<pid>/stat)."""
+    try:
+        with open(f"/proc/{pid}/stat") as f:
+            fields = f.read().rsplit(")", 1)[1].split()
+        return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+    except (OSError, ValueError, IndexError):
+        return None
+
+
+def wait_for_idle(max_wait_s, *, window_s=1.0, busy_cores=0.15):
+    """Wait until the machine was idle for ``window_s`` (other CPU < ``busy_cores``).
+
+    Returns (seconds waited, CPU cores busy in the last window).
+    """
+    t0 = time.monotonic()
+    while True:
+        a = machine_busy_s()
+        time.sleep(window_s)
+        b = machine_busy_s()
+        if a is None or b is None:
+            return 0.0, float("nan")
+        cores = (b - a) / window_s
+        waited = time.monotonic() - t0
+        if cores < busy_cores or waited >= max_wait_s:
+            return waited, cores
+
+
+class MemorySampler:
+    """Polls the peak RSS of some process trees until stopped.
+
+    VmHWM is the kernel's own high-water mark, so polling only has to catch
+    each process once shortly before it exits; only growth in the last poll
+    interval of a process's life can be missed.
+    """
+
+    def __init__(self, roots, interval=RSS_POLL_S):
+        self.roots = dict(roots)  # pid -> label of the tree
+        self.interval = interval
+        self.peak_kb = {}   # pid -> max VmHWM seen
+        self.cpu_first = {}  # pid -> CPU seconds when first seen
+        self.cpu_last = {}   # pid -> CPU seconds when last seen
+        self.info = {}      # pid -> (tree label, parent pid or None, cmdline)
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._loop, daemon=True)
+
+    def start(self):
+        self.sample()
+        self._thread.start()
+        return self
+
+    def sample(self):
+        for root, label in list(self.roots.items()):
+            for pid in [root] + _children(root):
+                kb = _peak_kb(pid)
+                if kb is None:
+                    continue
+                if pid not in self.info:
+                    ppid = _proc_status_kb(pid, "PPid")
+                    self.info[pid] = (label, ppid, _cmdline(pid))
+                self.peak_kb[pid] = max(kb, self.peak_kb.get(pid, 0))
+                cpu = _cpu_s(pid)
+                if cpu is not None:
+                    self.cpu_first.setdefault(pid, cpu)
+                    self.cpu_last[pid] = cpu
+
+    def _loop(self):
+        while not self._stop.wait(self.interval):
+            self.sample()
+
+    def stop(self):
+        self._stop.set()
+        self._thread.join()
+
+    def cpu_used_s(self, pids):
+        """CPU seconds the given (long-lived) processes used between first and last sample."""
+        return sum(self.cpu_last[p] - self.cpu_first[p] for p in pids if p in self.cpu_last)
+
+    def processes(self):
+        """[(pid, tree label, parent pid, cmdline, peak MB)] of every process seen."""
+        return [(pid, *self.info[pid], self.peak_kb[pid] / 1024.0) for pid in self.peak_kb]
+
+
+def _is_helper(cmd):
+    """Helper processes of the multiprocessing machinery (no work done there)."""
+    return "resource_tracker" in cmd or "forkserver" in cmd or "semaphore_tracker" in cmd
+
+
+def local_memory(sampler, batch_pid, workers):
+    """(main MB, [worker MB...]) of a local batch; with one worker the main process works."""
+    main_mb, worker_mb = None, []
+    for pid, _, ppid, cmd, mb in sampler.processes():
+        if pid == batch_pid:
+            main_mb = mb
+        elif ppid == batch_pid and not _is_helper(cmd):
+            worker_mb.append(mb)
+    if workers <= 1 and not worker_mb and main_mb is not None:
+        worker_mb = [main_mb]
+    return main_mb, sorted(worker_mb, reverse=True)
+
+
+def dask_memory(sampler, batch_pid, worker_roots):
+    """(client MB, [worker MB...], [nanny MB...]) of a Dask batch.
+
+    ``dask worker`` runs a nanny process that starts the actual worker as its
+    child; the worker is what does the tracking.
+    """
+    client_mb, worker_mb, nanny_mb = None, [], []
+    for pid, _, ppid, cmd, mb in sampler.processes():
+        if pid == batch_pid:
+            client_mb = mb
+        elif pid in worker_roots:
+            nanny_mb.append(mb)
+        elif ppid in worker_roots and not _is_helper(cmd):
+            worker_mb.append(mb)
+    if not worker_mb:  # workers without a nanny: the root itself works
+        worker_mb, nanny_mb = nanny_mb, []
+    return client_mb, sorted(worker_mb, reverse=True), sorted(nanny_mb, reverse=True)
+
+
+# ---------------------------------------------------------------------------
+# one batch run
+# ---------------------------------------------------------------------------
+
+
+def read_summary(path):
+    with open(path, newline="") as f:
+        rows = list(csv.DictReader(f))
+    secs = np.array([float(r["seconds"]) for r in rows if r["seconds"]])
+    return rows, secs
+
+
+def run_cli_batch(corpus, outdir, *, workers=None, scheduler=None, cwd, extra_roots=None):
+    """``python -m harmtrack batch`` as a subprocess into the empty ``outdir``.
+
+    Returns a dict: wall_s (Popen to exit), the CLI's own figures, per-file
+    seconds from summary.csv, and the sampler (peak RSS of every process).
+    """
+    outdir = Path(outdir)
+    if outdir.exists() and any(outdir.iterdir()):
+        raise RuntimeError(f"{outdir}: output folder not empty; every timed run needs a fresh one")
+    cmd = [sys.executable, "-m", "harmtrack", "batch", str(corpus), "-o", str(outdir),
+           "--formats", FORMATS, "--preset", PRESET, "-q"]
+    if workers is not None:
+        cmd += ["--workers", str(workers)]
+    if scheduler is not None:
+        cmd += ["--scheduler", scheduler]
+    out_f = tempfile.TemporaryFile(mode="w+")
+    err_f = tempfile.TemporaryFile(mode="w+")
+    roots = dict(extra_roots or {})
+    sampler = MemorySampler(roots)
+    sampler.sample()  # CPU times of the cluster's processes before the run
+    busy0 = machine_busy_s()
+    t0 = time.perf_counter()
+    proc = subprocess.Popen(cmd, stdout=out_f, stderr=err_f, cwd=str(cwd), env=child_env())
+    sampler.roots[proc.pid] = "batch"
+    sampler.start()
+    timer = threading.Timer(RUN_TIMEOUT_S, proc.kill)  # ends only this run's process
+    timer.start()
+    # wait4: the exit status and the CPU time of the batch and every process it reaped
+    _, status, usage = os.wait4(proc.pid, 0)
+    wall = time.perf_counter() - t0
+    busy1 = machine_busy_s()
+    timer.cancel()
+    proc.returncode = os.waitstatus_to_exitcode(status)
+    rc = proc.returncode
+    sampler.stop()
+    sampler.sample()  # the cluster's CPU times after the run
+    ours = usage.ru_utime + usage.ru_stime + sampler.cpu_used_s(extra_roots or {})
+    ours += sampler.cpu_used_s([p for p, (label, ppid, _) in sampler.info.items()
+                                if ppid in (extra_roots or {})])
+    machine = (busy1 - busy0) if busy0 is not None and busy1 is not None else float("nan")
+    # CPU used by processes that are not part of this run, as cores over the run
+    other_cores = max(0.0, machine - ours) / wall
+    if rc is not None and rc < 0:
+        raise RuntimeError(f"batch killed (signal {-rc}; timeout {RUN_TIMEOUT_S:g} s): "
+                           f"{' '.join(cmd)}")
+    out_f.seek(0)
+    err_f.seek(0)
+    stdout, stderr = out_f.read(), err_f.read()
+    out_f.close()
+    err_f.close()
+    if rc != 0:
+        tail = "\n".join(stderr.strip().splitlines()[-15:])
+        raise RuntimeError(f"batch failed with exit status {rc}: {' '.join(cmd)}\n{tail}")
+    m = SUMMARY_RE.search(stdout)
+    if not m:
+        raise RuntimeError(f"no summary line in the batch's output: {stdout.strip()[:300]!r}")
+    n = int(m["files"])
+    if int(m["ok"]) != n:
+        raise RuntimeError(f"expected all {n} files labelled in a fresh folder, got: "
+                           f"{m.group(0)}")
+    rows, secs = read_summary(outdir / "summary.csv")
+    return {"cmd": cmd, "pid": proc.pid, "wall_s": wall, "files": n, "cpu_s": ours,
+            "other_cores": other_cores,
+            "cli_seconds": float(m["seconds"]), "cli_xrt": float(m["xrt"]),
+            "summary_line": stdout.strip().splitlines()[0], "file_seconds": secs,
+            "sampler": sampler}
+
+
+# ---------------------------------------------------------------------------
+# Dask cluster
+# ---------------------------------------------------------------------------
+
+
+def free_port():
+    with socket.socket(socket.AF_INET, socket.SOCK_STREAM) as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def dask_command(tool):
+    """``dask scheduler`` / ``dask worker`` from this environment's dask."""
+    exe = Path(sys.executable).with_name("dask")
+    if exe.exists():
+        return [str(exe), tool]
+    found = shutil.which("dask")
+    if found:
+        return [found, tool]
+    raise RuntimeError("dask's command-line tool is not installed (pip install 'dask[distributed]')")
+
+
+class DaskCluster:
+    """A scheduler and ``n`` single-threaded workers as separate processes on 127.0.0.1."""
+
+    def __init__(self, workdir, n_workers=2):
+        self.workdir = Path(workdir)
+        self.n_workers = n_workers
+        self.scheduler = None
+        self.workers = []
+        self.address = None
+        self.start_s = None
+        self._logs = []
+
+    def _popen(self, cmd, log_name):
+        log = open(self.workdir / log_name, "w")
+        self._logs.append(log)
+        return subprocess.Popen(cmd, stdout=log, stderr=subprocess.STDOUT, cwd=str(self.workdir),
+                                env=child_env())
+
+    def log_tail(self, n=10):
+        out = []
+        for log in self._logs:
+            try:
+                lines = Path(log.name).read_text().strip().splitlines()[-n:]
+            except OSError:
+                continue
+            out.append(f"--- {Path(log.name).name}\n" + "\n".join(lines))
+        return "\n".join(out)
+
+    def start(self):
+        from distributed import Client
+
+        self.workdir.mkdir(parents=True, exist_ok=True)
+        port = free_port()
+        sched_file = self.workdir / "scheduler.json"
+        t0 = time.perf_counter()
+        self.scheduler = self._popen(
+            dask_command("scheduler") + ["--host", "127.0.0.1", "--port", str(port),
+                                         "--no-dashboard", "--scheduler-file", str(sched_file)],
+            "scheduler.log")
+        deadline = time.monotonic() + CLUSTER_TIMEOUT_S
+        while not sched_file.is_file():
+            if self.scheduler.poll() is not None or time.monotonic() > deadline:
+                raise RuntimeError("the Dask scheduler did not start\n" + self.log_tail())
+            time.sleep(0.05)
+        while True:  # the file may be seen before it is completely written
+            try:
+                self.address = json.loads(sched_file.read_text())["address"]
+                break
+            except (ValueError, KeyError):
+                if time.monotonic() > deadline:
+                    raise RuntimeError("unreadable scheduler file\n" + self.log_tail()) from None
+                time.sleep(0.05)
+        for i in range(self.n_workers):
+            local = self.workdir / f"worker{i}"
+            local.mkdir(exist_ok=True)
+            self.workers.append(self._popen(
+                dask_command("worker") + [self.address, "--nworkers", "1", "--nthreads", "1",
+                                          "--no-dashboard", "--host", "127.0.0.1",
+                                          "--local-directory", str(local)],
+                f"worker{i}.log"))
+        try:
+            with Client(self.address, timeout="30s") as client:
+                client.wait_for_workers(self.n_workers, timeout=CLUSTER_TIMEOUT_S)
+        except Exception as exc:
+            raise RuntimeError(f"Dask workers did not connect: {exc}\n" + self.log_tail()) from None
+        self.start_s = time.perf_counter() - t0
+        return self
+
+    def stop(self):
+        """Ask the scheduler to shut the cluster down; end what is left by its process id."""
+        procs = [p for p in [self.scheduler] + self.workers if p is not None]
+        clean = True
+        if self.address and any(p.poll() is None for p in procs):
+            try:
+                from distributed import Client
+
+                with Client(self.address, timeout="10s") as client:
+                    client.shutdown()
+            except Exception:  # noqa: BLE001 - fall back to signals below
+                clean = False
+        for p in procs:
+            try:
+                p.wait(timeout=30)
+            except subprocess.TimeoutExpired:
+                clean = False
+                p.terminate()
+                try:
+                    p.wait(timeout=10)
+                except subprocess.TimeoutExpired:
+                    p.kill()
+                    p.wait()
+        for log in self._logs:
+            log.close()
+        return clean
+
+
+# ---------------------------------------------------------------------------
+# breakdown: where the time goes
+# ---------------------------------------------------------------------------
+
+STARTUP_PROBE = r"""
+import time
+t0 = time.perf_counter()
+import numpy as np
+import harmtrack
+from harmtrack import api, batch, io, audio
+t1 = time.perf_counter()
+y = np.sin(2 * np.pi * 140.0 * np.arange(16000) / 16000.0) + 1e-3 * np.random.default_rng(0).standard_normal(16000)
+api.track(y, 16000, preset="voice")
+t2 = time.perf_counter()
+api.track(y, 16000, preset="voice")
+t3 = time.perf_counter()
+print(t1 - t0, t2 - t1, t3 - t2)
+"""
+
+
+def time_subprocess(cmd, *, cwd, repeats=3):
+    """Median wall time of a command (and its last stdout)."""
+    walls, out = [], ""
+    for _ in range(repeats):
+        t0 = time.perf_counter()
+        p = subprocess.run(cmd, capture_output=True, text=True, cwd=str(cwd), env=child_env(),
+                           timeout=600)
+        walls.append(time.perf_counter() - t0)
+        if p.returncode != 0:
+            raise RuntimeError(f"{' '.join(cmd)} failed: {p.stderr.strip()[-300:]}")
+        out = p.stdout
+    return float(np.median(walls)), out
+
+
+def stage_times(corpus, scratch, n=20):
+    """Median seconds of the stages of one file's job, in this process (one thread)."""
+    from harmtrack import audio, batch, io as hio
+    from harmtrack.config import make_config
+    from harmtrack.tracker import run
+
+    tasks = batch.plan_batch(corpus, scratch, formats=(FORMATS,), options={"preset": PRESET})
+    step = max(1, len(tasks) // n)
+    pick = tasks[::step][:n]
+    cfg = make_config(PRESET)
+    # one untimed file first: imports and numba's cache load
+    y, sr, _ = audio.load(pick[0].path)
+    run(y, sr, cfg)
+    t = {"hash": [], "load": [], "track": [], "write": [], "total": []}
+    Path(scratch).mkdir(parents=True, exist_ok=True)
+    for task in pick:
+        a = time.perf_counter()
+        digest = audio.file_sha256(task.path)
+        b = time.perf_counter()
+        y, sr, info = audio.load(task.path)  # also hashes the file again
+        c = time.perf_counter()
+        tr = run(y, sr, cfg, name=task.path)
+        tr.settings["input"] = info.as_dict()
+        d = time.perf_counter()
+        hio.write_labels(tr, Path(scratch) / f"f{task.file_id}.npz", fmt=FORMATS,
+                         provenance={"input": {"path": task.name},
+                                     "batch": {"key": digest, "name": task.name}})
+        e = time.perf_counter()
+        for k, v in (("hash", b - a), ("load", c - b), ("track", d - c), ("write", e - d),
+                     ("total", e - a)):
+            t[k].append(v)
+    return {k: float(np.median(v)) for k, v in t.items()}
+
+
+def assembly_times(corpus, outdir):
+    """Seconds to read every label file back and write the dataset and the summary."""
+    from harmtrack import batch
+    from harmtrack.batch_output import read_results, write_dataset, write_summary
+
+    tasks = batch.plan_batch(corpus, outdir, formats=(FORMATS,), options={"preset": PRESET})
+    records = [{"file_id": t.file_id, "name": t.name, "status": "ok", "error": "",
+                "seconds": 0.0} for t in tasks]
+    scratch = Path(outdir) / "_bench_assembly"
+    scratch.mkdir()
+    a = time.perf_counter()
+    durations = batch._durations(tasks)  # run_batch's header scan before its clock starts
+    b = time.perf_counter()
+    results = read_results(tasks, records)
+    c = time.perf_counter()
+    write_dataset(scratch / "frames.parquet", results)
+    d = time.perf_counter()
+    write_summary(scratch / "summary.csv", tasks, records, results)
+    e = time.perf_counter()
+    assert durations.size == len(tasks)
+    return {"headers": b - a, "read_labels": c - b, "dataset": d - c, "summary": e - d,
+            "total": e - a}
+
+
+# ---------------------------------------------------------------------------
+# report
+# ---------------------------------------------------------------------------
+
+
+def fmt_mb(values):
+    if not values:
+        return "-"
+    return "/".join(f"{v:.0f}" for v in values)
+
+
+def main(argv=None):
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--quick", action="store_true",
+                    help=f"{QUICK_LONG[0]} x {QUICK_LONG[1]:g} s and {QUICK_SHORT[0]} x "
+                         f"{QUICK_SHORT[1]:g} s files, one run per configuration")
+    ap.add_argument("--data", type=Path, default=Path(tempfile.gettempdir()) / "harmtrack_bench_batch",
+                    help="folder of the synthetic corpus, built once and reused "
+                         "(default: %(default)s)")
+    ap.add_argument("--repeats", type=int, default=None,
+                    help="runs per configuration, interleaved; the median counts "
+                         "(default 3, or 1 with --quick)")
+    ap.add_argument("--json", type=Path, default=None, help="write every number to this file")
+    ap.add_argument("--no-dask", action="store_true", help="skip the Dask cluster configuration")
+    ap.add_argument("--no-breakdown", action="store_true",
+                    help="skip the where-the-time-goes measurements")
+    ap.add_argument("--wait-idle", type=float, default=60.0, metavar="S",
+                    help="before each timed run, wait up to S seconds for the machine to be "
+                         "idle for 1 s (default %(default)g; 0: do not wait)")
+    ap.add_argument("--keep", action="store_true",
+                    help="keep the output folders (printed) instead of removing them")
+    args = ap.parse_args(argv)
+
+    repeats = args.repeats if args.repeats is not None else (1 if args.quick else 3)
+    if repeats < 1:
+        ap.error("--repeats must be at least 1")
+    long_spec = QUICK_LONG if args.quick else LONG
+    short_spec = QUICK_SHORT if args.quick else SHORT
+
+    load = os.getloadavg() if hasattr(os, "getloadavg") else (float("nan"),) * 3
+    cpus = os.cpu_count() or 1
+    try:
+        import distributed
+
+        dask_version = distributed.__version__
+    except ImportError:
+        dask_version = None
+    print(f"harmtrack {harmtrack.__version__} | numpy {np.__version__} | "
+          f"distributed {dask_version or 'not installed'} | psutil "
+          f"{psutil.__version__ if psutil else 'not installed (/proc)'} | python "
+          f"{platform.python_version()} | {platform.machine()}")
+    print(f"threads: 1 per process (env vars{' + threadpoolctl' if _single_thread.THREAD_LIMITER else ''}"
+          f", inherited by every subprocess) | load average {load[0]:.2f} on {cpus} CPUs"
+          + ("  << machine is busy: timings are unreliable"
+             if load[0] > max(0.5, 0.25 * cpus) else ""))
+    if cpus < 2:
+        print(f"note: only {cpus} CPU: 2 workers cannot run in parallel here")
+
+    # --- corpus -------------------------------------------------------------------
+    data = args.data.resolve()
+    data.mkdir(parents=True, exist_ok=True)
+    corpora = {}
+    for key, (n, dur), seed in (("long", long_spec, SEED_LONG), ("short", short_spec, SEED_SHORT)):
+        folder, built_s, reused = ensure_corpus(data / f"{key}_{n}x{dur:g}s", n, dur, seed)
+        corpora[key] = {"folder": folder, "files": n, "duration_s": dur, "audio_s": n * dur}
+        print(f"corpus {key}: {n} x {dur:g} s = {n * dur / 3600:.3f} h, {SR} Hz mono, {folder} "
+              + ("(reused)" if reused else f"(built in {built_s:.1f} s)"))
+
+    work = Path(tempfile.mkdtemp(prefix="harmtrack_bench_batch_run_"))
+    counter = {"n": 0}
+
+    def fresh_outdir(label):
+        counter["n"] += 1
+        d = work / f"out{counter['n']:03d}_{label}"
+        assert not d.exists()
+        return d
+
+    def discard(outdir):
+        if not args.keep:
+            shutil.rmtree(outdir, ignore_errors=True)
+
+    # --- warm-up: fills numba's on-disk cache if it is empty (not timed) -------------
+    warm_src = work / "warm_in"
+    warm_src.mkdir()
+    for p in sorted(corpora["long"]["folder"].glob("*.wav"))[:2]:
+        shutil.copy(p, warm_src / p.name)
+    warm_out = fresh_outdir("warm")
+    t0 = time.perf_counter()
+    run_cli_batch(warm_src, warm_out, workers=1, cwd=work)
+    print(f"warm-up: 2-file batch in {time.perf_counter() - t0:.2f} s (not counted; fills "
+          "numba's on-disk cache when it is empty)")
+    discard(warm_out)
+
+    # --- timed runs, interleaved ------------------------------------------------------
+    configs = [
+        ("local1", "10 s files, local, 1 worker", "long", {"workers": 1}),
+        ("local2", "10 s files, local, 2 workers", "long", {"workers": 2}),
+    ]
+    if not args.no_dask:
+        if dask_version is None:
+            print("Dask: distributed not installed, configuration skipped")
+        else:
+            configs.append(("dask2", "10 s files, Dask, 2 workers", "long", {"dask": 2}))
+    configs.append(("short2", "1 s files, local, 2 workers", "short", {"workers": 2}))
+
+    def idle_gate():
+        if args.wait_idle <= 0:
+            return 0.0
+        waited, cores = wait_for_idle(args.wait_idle)
+        if cores >= 0.15:
+            print(f"  (machine still busy after waiting {waited:.0f} s: {cores:.2f} cores in use)")
+        return waited
+
+    runs = {c[0]: [] for c in configs}
+    last_outdir = {}
+    print(f"\nruns: {len(configs)} configurations x {repeats} repeat(s), interleaved; every run "
+          "into a fresh, empty output folder")
+    for rep in range(repeats):
+        for key, label, corpus_key, how in configs:
+            corpus = corpora[corpus_key]["folder"]
+            outdir = fresh_outdir(key)
+            if "dask" in how:
+                cluster = DaskCluster(work / f"dask{counter['n']:03d}", how["dask"])
+                try:
+                    cluster.start()
+                    roots = {p.pid: f"worker{i}" for i, p in enumerate(cluster.workers)}
+                    waited = idle_gate()
+                    r = run_cli_batch(corpus, outdir, scheduler=cluster.address, cwd=work,
+                                      extra_roots={**roots, cluster.scheduler.pid: "scheduler"})
+                finally:
+                    clean = cluster.stop()
+                client_mb, worker_mb, nanny_mb = dask_memory(r["sampler"], r["pid"], set(roots))
+                r.update(main_mb=client_mb, worker_mb=worker_mb, nanny_mb=nanny_mb,
+                         cluster_start_s=cluster.start_s, clean_shutdown=clean,
+                         workers=how["dask"])
+            else:
+                waited = idle_gate()
+                r = run_cli_batch(corpus, outdir, workers=how["workers"], cwd=work)
+                main_mb, worker_mb = local_memory(r["sampler"], r["pid"], how["workers"])
+                r.update(main_mb=main_mb, worker_mb=worker_mb, workers=how["workers"])
+            r["audio_s"] = corpora[corpus_key]["audio_s"]
+            r["waited_idle_s"] = waited
+            r["throughput"] = r["audio_s"] / r["wall_s"]
+            del r["sampler"]
+            runs[key].append(r)
+            extra = (f"; cluster up in {r['cluster_start_s']:.1f} s (not counted), shutdown "
+                     f"{'clean' if r['clean_shutdown'] else 'NOT clean'}" if "dask" in how else "")
+            busy = (f"  << other processes used {r['other_cores']:.2f} cores"
+                    if r["other_cores"] > OTHER_LOAD_WARN else "")
+            print(f"  [{rep + 1}/{repeats}] {label:<30s} wall {r['wall_s']:7.2f} s  "
+                  f"{r['throughput']:6.0f} audio h/h  CPU {r['cpu_s']:6.2f} s  "
+                  f"other load {r['other_cores']:.2f} cores{extra}{busy}")
+            if key in last_outdir:
+                discard(last_outdir[key])
+            last_outdir[key] = outdir
+
+    # --- table -------------------------------------------------------------------------
+    def med(key, field):
+        return float(np.median([r[field] for r in runs[key]]))
+
+    summary = {}
+    for key, label, corpus_key, how in configs:
+        rs = runs[key]
+        fs = np.concatenate([r["file_seconds"] for r in rs])
+        summary[key] = {
+            "label": label, "files": rs[0]["files"], "audio_s": rs[0]["audio_s"],
+            "workers": rs[0]["workers"], "wall_s": med(key, "wall_s"),
+            "wall_s_runs": [r["wall_s"] for r in rs],
+            "throughput": float(np.median([r["throughput"] for r in rs])),
+            "cli_seconds": med(key, "cli_seconds"), "cli_xrt": med(key, "cli_xrt"),
+            "main_mb": max((r["main_mb"] or 0.0) for r in rs),
+            "worker_mb": [max(v) for v in zip(*[r["worker_mb"] for r in rs])]
+            if all(r["worker_mb"] for r in rs) else [],
+            "nanny_mb": [max(v) for v in zip(*[r["nanny_mb"] for r in rs])]
+            if all(r.get("nanny_mb") for r in rs) else [],
+            "other_cores_max": max(r["other_cores"] for r in rs),
+            "cpu_s": med(key, "cpu_s"),
+            "file_s_median": float(np.median(fs)), "file_s_sum": float(np.median(
+                [r["file_seconds"].sum() for r in rs])),
+            "file_s_max": float(np.max(fs)),
+            "cluster_start_s": (float(np.median([r["cluster_start_s"] for r in rs]))
+                                if "dask" in how else None),
+            "summary_line": rs[-1]["summary_line"], "cmd": rs[-1]["cmd"],
+        }
+
+    print()
+    head = (f"{'configuration':<30s}{'files':>6s}{'audio h':>9s}{'wall s':>8s}{'audio h/h':>10s}"
+            f"{'xRT cli':>8s}{'main MB':>8s}  {'worker MB':<11s}{'file s':>8s}{'CPU s':>8s}"
+            f"{'other':>7s}")
+    print(head)
+    print("-" * len(head))
+    for key, s in summary.items():
+        print(f"{s['label']:<30s}{s['files']:>6d}{s['audio_s'] / 3600:>9.3f}{s['wall_s']:>8.2f}"
+              f"{s['throughput']:>10.0f}{s['cli_xrt']:>8.0f}{s['main_mb']:>8.0f}  "
+              f"{fmt_mb(s['worker_mb']):<11s}{s['file_s_median']:>8.4f}{s['cpu_s']:>8.2f}"
+              f"{s['other_cores_max']:>7.2f}")
+    print(f"wall s: Popen to exit of `python -m harmtrack batch` (median of {repeats}), "
+          "start-up included;\naudio h/h: throughput, audio hours per wall hour (= x real "
+          "time on the wall clock);\nxRT cli: the CLI's own 'x real time' (its clock starts "
+          "after start-up, input scan and header reads);\nmain MB: peak RSS (VmHWM) of the "
+          "batch process (Dask: the client);\nworker MB: peak RSS of each worker process "
+          "(1 local worker: the batch process itself; Dask: the\nworker process under each "
+          "nanny); file s: median per-file seconds from summary.csv;\nCPU s: CPU seconds of all "
+          "processes of the run (Dask: client, scheduler, nannies, workers);\nother: CPU "
+          f"used meanwhile by processes outside the run, in cores (max over runs; > "
+          f"{OTHER_LOAD_WARN:g}: not an idle machine).")
+    if "dask2" in summary:
+        s = summary["dask2"]
+        print(f"Dask: cluster start-up (scheduler + 2 workers connected) {s['cluster_start_s']:.1f} s,"
+              f" not in wall s; nanny processes peak {fmt_mb(s['nanny_mb'])} MB.")
+
+    # --- breakdown -------------------------------------------------------------------
+    breakdown = {}
+    if not args.no_breakdown:
+        print("\nwhere the time goes")
+        py_s, _ = time_subprocess([sys.executable, "-c", "pass"], cwd=work)
+        imp_s, _ = time_subprocess([sys.executable, "-c", "import harmtrack"], cwd=work)
+        _, probe = time_subprocess([sys.executable, "-c", STARTUP_PROBE], cwd=work)
+        p_import, p_first, p_second = (float(v) for v in probe.split())
+        one_src = work / "one_in"
+        one_src.mkdir()
+        shutil.copy(sorted(corpora["short"]["folder"].glob("*.wav"))[0], one_src)
+        one_walls = []
+        for _ in range(3):
+            o = fresh_outdir("one")
+            one_walls.append(run_cli_batch(one_src, o, workers=1, cwd=work)["wall_s"])
+            discard(o)
+        one_s = float(np.median(one_walls))
+        breakdown["process"] = {"python_empty_s": py_s, "import_harmtrack_s": imp_s,
+                                "import_pipeline_s": p_import, "first_track_s": p_first,
+                                "second_track_s": p_second, "batch_1_file_1s_wall_s": one_s}
+        print(f"  fresh process: `python -c pass` {py_s:.3f} s; `import harmtrack` {imp_s:.3f} s "
+              f"(wall, both); importing the pipeline modules {p_import:.3f} s; first track call "
+              f"{p_first:.3f} s vs second {p_second:.3f} s\n    -> numba cache load etc. "
+              f"~{p_first - p_second:.3f} s per fresh process (each worker pays it once)")
+        print(f"  `harmtrack batch` of one 1 s file, 1 worker: {one_s:.3f} s wall (fixed cost "
+              "of a batch run)")
+        for key in ("long", "short"):
+            st = stage_times(corpora[key]["folder"], work / f"stages_{key}")
+            shutil.rmtree(work / f"stages_{key}", ignore_errors=True)
+            breakdown[f"stages_{key}"] = st
+            d = corpora[key]["duration_s"]
+            print(f"  per file, {d:g} s files (median of 20, this process): hash {st['hash'] * 1e3:.1f}"
+                  f" ms, load+hash {st['load'] * 1e3:.1f} ms, track {st['track'] * 1e3:.1f} ms, "
+                  f"write npz {st['write'] * 1e3:.1f} ms; total {st['total'] * 1e3:.1f} ms = "
+                  f"{st['total'] / d * 1e3:.1f} ms per audio s")
+        for key, cfg_key in (("long", "local2"), ("short", "short2")):
+            if cfg_key in last_outdir and last_outdir[cfg_key].exists():
+                asm = assembly_times(corpora[key]["folder"], last_outdir[cfg_key])
+                breakdown[f"assembly_{key}"] = asm
+                print(f"  assembly, {corpora[key]['files']} files: header scan {asm['headers']:.2f} s"
+                      f" (before the CLI's clock), read labels {asm['read_labels']:.2f} s, "
+                      f"parquet {asm['dataset']:.2f} s, summary {asm['summary']:.2f} s; "
+                      f"total {asm['total']:.2f} s")
+        for key, s in summary.items():
+            over = s["wall_s"] - s["file_s_sum"] / s["workers"]
+            breakdown[f"overhead_{key}"] = {"wall_minus_file_seconds_per_worker_s": over,
+                                            "wall_minus_cli_seconds_s": s["wall_s"] - s["cli_seconds"]}
+            print(f"  {s['label']:<30s}: sum of per-file s / workers {s['file_s_sum'] / s['workers']:6.2f} s"
+                  f", wall {s['wall_s']:6.2f} s -> {over:5.2f} s outside the files; CLI clock "
+                  f"{s['cli_seconds']:6.2f} s (start-up + scan {s['wall_s'] - s['cli_seconds']:.2f} s);"
+                  f" slowest file {s['file_s_max']:.3f} s")
+
+    # --- floors ------------------------------------------------------------------------
+    floors = []
+
+    def floor(name, ok, detail):
+        floors.append({"floor": name, "pass": bool(ok), "detail": detail})
+
+    t1, t2 = summary["local1"]["throughput"], summary["local2"]["throughput"]
+    floor(f"2 local workers >= {SCALING_FLOOR:g} x 1 worker", t2 >= SCALING_FLOOR * t1,
+          f"{t2 / t1:.2f} x ({t2:.0f} vs {t1:.0f} audio h/h)")
+    ts = summary["short2"]["throughput"]
+    floor(f"1 s files >= {SHORT_FILE_FLOOR * 100:g} % of 10 s files (2 workers)",
+          ts >= SHORT_FILE_FLOOR * t2, f"{100 * ts / t2:.0f} % ({ts:.0f} vs {t2:.0f} audio h/h)")
+    busy_runs = sum(r["other_cores"] > OTHER_LOAD_WARN for rs in runs.values() for r in rs)
+    print("\nfloors" + (f"  (note: {busy_runs} run(s) shared the machine with other load)"
+                        if busy_runs else ""))
+    for f in floors:
+        print(f"  {'PASS' if f['pass'] else 'FAIL'}  {f['floor']:<46s} {f['detail']}")
+    n_fail = sum(not f["pass"] for f in floors)
+
+    if args.json:
+        doc = {
+            "settings": {"sr": SR, "preset": PRESET, "formats": FORMATS, "repeats": repeats,
+                         "quick": args.quick, "corpora": {k: {kk: str(vv) if kk == "folder" else vv
+                                                              for kk, vv in v.items()}
+                                                          for k, v in corpora.items()},
+                         "corpus_recipe": {k: corpus_recipe(v["files"], v["duration_s"],
+                                                            SEED_LONG if k == "long" else SEED_SHORT)
+                                           for k, v in corpora.items()},
+                         "floors": {"scaling": SCALING_FLOOR, "short_files": SHORT_FILE_FLOOR}},
+            "environment": {"harmtrack": harmtrack.__version__, "numpy": np.__version__,
+                            "distributed": dask_version, "python": platform.python_version(),
+                            "machine": platform.machine(), "cpus": cpus,
+                            "load_average_1min": load[0]},
+            "runs": {k: [{kk: (vv.tolist() if isinstance(vv, np.ndarray) else vv)
+                          for kk, vv in r.items()} for r in rs] for k, rs in runs.items()},
+            "summary": summary, "breakdown": breakdown, "floors": floors,
+            "failed_floors": n_fail,
+        }
+        args.json.parent.mkdir(parents=True, exist_ok=True)
+        args.json.write_text(json.dumps(doc, indent=2, default=float) + "\n")
+        print(f"\nwrote {args.json}")
+
+    if args.keep:
+        print(f"\noutput folders kept in {work}")
+    else:
+        shutil.rmtree(work, ignore_errors=True)
+    print(f"\nfailed floors: {n_fail} of {len(floors)}")
+    return 1 if n_fail else 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
