@@ -280,6 +280,7 @@ class MemorySampler:
         self.cpu_first = {}  # pid -> CPU seconds when first seen
         self.cpu_last = {}   # pid -> CPU seconds when last seen
         self.info = {}      # pid -> (tree label, parent pid or None, cmdline)
+        self.before = set()  # pids that existed before the run
         self._stop = threading.Event()
         self._thread = threading.Thread(target=self._loop, daemon=True)
 
@@ -316,8 +317,17 @@ class MemorySampler:
         return sum(self.cpu_last[p] - self.cpu_first[p] for p in pids if p in self.cpu_last)
 
     def processes(self):
-        """[(pid, tree label, parent pid, cmdline, peak MB)] of every process seen."""
-        return [(pid, *self.info[pid], self.peak_kb[pid] / 1024.0) for pid in self.peak_kb]
+        """[(pid, tree label, parent pid, cmdline, peak MB, CPU s in the run)] of every process.
+
+        The CPU time of a process that ended during the run is its last sample's,
+        up to one poll interval short.
+        """
+        out = []
+        for pid in self.peak_kb:
+            last = self.cpu_last.get(pid, 0.0)
+            cpu = last - self.cpu_first.get(pid, 0.0) if pid in self.before else last
+            out.append((pid, *self.info[pid], self.peak_kb[pid] / 1024.0, cpu))
+        return out
 
 
 def _is_helper(cmd):
@@ -325,36 +335,40 @@ def _is_helper(cmd):
     return "resource_tracker" in cmd or "forkserver" in cmd or "semaphore_tracker" in cmd
 
 
-def local_memory(sampler, batch_pid, workers):
-    """(main MB, [worker MB...]) of a local batch; with one worker the main process works."""
-    main_mb, worker_mb = None, []
-    for pid, _, ppid, cmd, mb in sampler.processes():
+def local_roles(sampler, batch_pid, workers):
+    """Peak MB and CPU s of a local batch: {"main": (mb, cpu), "workers": [(mb, cpu)...]}.
+
+    With one worker the batch process does the work itself and is its worker.
+    """
+    main, wk = None, []
+    for pid, _, ppid, cmd, mb, cpu in sampler.processes():
         if pid == batch_pid:
-            main_mb = mb
+            main = (mb, cpu)
         elif ppid == batch_pid and not _is_helper(cmd):
-            worker_mb.append(mb)
-    if workers <= 1 and not worker_mb and main_mb is not None:
-        worker_mb = [main_mb]
-    return main_mb, sorted(worker_mb, reverse=True)
+            wk.append((mb, cpu))
+    if workers <= 1 and not wk and main is not None:
+        wk = [main]
+    return {"main": main or (None, None), "workers": sorted(wk, reverse=True)}
 
 
-def dask_memory(sampler, batch_pid, worker_roots):
-    """(client MB, [worker MB...], [nanny MB...]) of a Dask batch.
+def dask_roles(sampler, batch_pid, worker_roots):
+    """Like :func:`local_roles` for a Dask batch, plus "nannies".
 
     ``dask worker`` runs a nanny process that starts the actual worker as its
-    child; the worker is what does the tracking.
+    child; the worker is what does the tracking.  "main" is the batch client.
     """
-    client_mb, worker_mb, nanny_mb = None, [], []
-    for pid, _, ppid, cmd, mb in sampler.processes():
+    main, wk, nannies = None, [], []
+    for pid, _, ppid, cmd, mb, cpu in sampler.processes():
         if pid == batch_pid:
-            client_mb = mb
+            main = (mb, cpu)
         elif pid in worker_roots:
-            nanny_mb.append(mb)
+            nannies.append((mb, cpu))
         elif ppid in worker_roots and not _is_helper(cmd):
-            worker_mb.append(mb)
-    if not worker_mb:  # workers without a nanny: the root itself works
-        worker_mb, nanny_mb = nanny_mb, []
-    return client_mb, sorted(worker_mb, reverse=True), sorted(nanny_mb, reverse=True)
+            wk.append((mb, cpu))
+    if not wk:  # workers without a nanny: the root itself works
+        wk, nannies = nannies, []
+    return {"main": main or (None, None), "workers": sorted(wk, reverse=True),
+            "nannies": sorted(nannies, reverse=True)}
 
 
 # ---------------------------------------------------------------------------
@@ -369,7 +383,8 @@ def read_summary(path):
     return rows, secs
 
 
-def run_cli_batch(corpus, outdir, *, workers=None, scheduler=None, cwd, extra_roots=None):
+def run_cli_batch(corpus, outdir, *, workers=None, scheduler=None, cwd, extra_roots=None,
+                  extra_args=()):
     """``python -m harmtrack batch`` as a subprocess into the empty ``outdir``.
 
     Returns a dict: wall_s (Popen to exit), the CLI's own figures, per-file
@@ -384,11 +399,13 @@ def run_cli_batch(corpus, outdir, *, workers=None, scheduler=None, cwd, extra_ro
         cmd += ["--workers", str(workers)]
     if scheduler is not None:
         cmd += ["--scheduler", scheduler]
+    cmd += list(extra_args)
     out_f = tempfile.TemporaryFile(mode="w+")
     err_f = tempfile.TemporaryFile(mode="w+")
     roots = dict(extra_roots or {})
     sampler = MemorySampler(roots)
     sampler.sample()  # CPU times of the cluster's processes before the run
+    sampler.before = set(sampler.info)
     busy0 = machine_busy_s()
     t0 = time.perf_counter()
     proc = subprocess.Popen(cmd, stdout=out_f, stderr=err_f, cwd=str(cwd), env=child_env())
@@ -564,12 +581,13 @@ import time
 t0 = time.perf_counter()
 import numpy as np
 import harmtrack
-from harmtrack import api, batch, io, audio
+import harmtrack.batch
 t1 = time.perf_counter()
-y = np.sin(2 * np.pi * 140.0 * np.arange(16000) / 16000.0) + 1e-3 * np.random.default_rng(0).standard_normal(16000)
-api.track(y, 16000, preset="voice")
+y = np.sin(2 * np.pi * 140.0 * np.arange(16000) / 16000.0)
+y += 1e-3 * np.random.default_rng(0).standard_normal(16000)
+harmtrack.track(y, 16000, preset="voice")
 t2 = time.perf_counter()
-api.track(y, 16000, preset="voice")
+harmtrack.track(y, 16000, preset="voice")
 t3 = time.perf_counter()
 print(t1 - t0, t2 - t1, t3 - t2)
 """
@@ -589,62 +607,22 @@ def time_subprocess(cmd, *, cwd, repeats=3):
     return float(np.median(walls)), out
 
 
-def stage_times(corpus, scratch, n=20):
-    """Median seconds of the stages of one file's job, in this process (one thread)."""
-    from harmtrack import audio, batch, io as hio
-    from harmtrack.config import make_config
-    from harmtrack.tracker import run
+def analysis_times(corpus, n=20):
+    """Median seconds of ``harmtrack.track_file`` (read + analysis) on ``n`` files, here.
 
-    tasks = batch.plan_batch(corpus, scratch, formats=(FORMATS,), options={"preset": PRESET})
-    step = max(1, len(tasks) // n)
-    pick = tasks[::step][:n]
-    cfg = make_config(PRESET)
-    # one untimed file first: imports and numba's cache load
-    y, sr, _ = audio.load(pick[0].path)
-    run(y, sr, cfg)
-    t = {"hash": [], "load": [], "track": [], "write": [], "total": []}
-    Path(scratch).mkdir(parents=True, exist_ok=True)
-    for task in pick:
-        a = time.perf_counter()
-        digest = audio.file_sha256(task.path)
-        b = time.perf_counter()
-        y, sr, info = audio.load(task.path)  # also hashes the file again
-        c = time.perf_counter()
-        tr = run(y, sr, cfg, name=task.path)
-        tr.settings["input"] = info.as_dict()
-        d = time.perf_counter()
-        hio.write_labels(tr, Path(scratch) / f"f{task.file_id}.npz", fmt=FORMATS,
-                         provenance={"input": {"path": task.name},
-                                     "batch": {"key": digest, "name": task.name}})
-        e = time.perf_counter()
-        for k, v in (("hash", b - a), ("load", c - b), ("track", d - c), ("write", e - d),
-                     ("total", e - a)):
-            t[k].append(v)
-    return {k: float(np.median(v)) for k, v in t.items()}
-
-
-def assembly_times(corpus, outdir):
-    """Seconds to read every label file back and write the dataset and the summary."""
-    from harmtrack import batch
-    from harmtrack.batch_output import read_results, write_dataset, write_summary
-
-    tasks = batch.plan_batch(corpus, outdir, formats=(FORMATS,), options={"preset": PRESET})
-    records = [{"file_id": t.file_id, "name": t.name, "status": "ok", "error": "",
-                "seconds": 0.0} for t in tasks]
-    scratch = Path(outdir) / "_bench_assembly"
-    scratch.mkdir()
-    a = time.perf_counter()
-    durations = batch._durations(tasks)  # run_batch's header scan before its clock starts
-    b = time.perf_counter()
-    results = read_results(tasks, records)
-    c = time.perf_counter()
-    write_dataset(scratch / "frames.parquet", results)
-    d = time.perf_counter()
-    write_summary(scratch / "summary.csv", tasks, records, results)
-    e = time.perf_counter()
-    assert durations.size == len(tasks)
-    return {"headers": b - a, "read_labels": c - b, "dataset": d - c, "summary": e - d,
-            "total": e - a}
+    Compared with the per-file seconds of summary.csv (the worker's whole job:
+    hashing, resume check, analysis, encoding and writing the labels) it shows
+    the per-file cost of the batch machinery around the analysis.
+    """
+    files = sorted(Path(corpus).glob("*.wav"))
+    pick = files[::max(1, len(files) // n)][:n]
+    harmtrack.track_file(pick[0], preset=PRESET)  # untimed: numba's cache load
+    secs = []
+    for f in pick:
+        t0 = time.perf_counter()
+        harmtrack.track_file(f, preset=PRESET)
+        secs.append(time.perf_counter() - t0)
+    return float(np.median(secs))
 
 
 # ---------------------------------------------------------------------------
@@ -716,246 +694,277 @@ def main(argv=None):
               + ("(reused)" if reused else f"(built in {built_s:.1f} s)"))
 
     work = Path(tempfile.mkdtemp(prefix="harmtrack_bench_batch_run_"))
-    counter = {"n": 0}
+    try:
+        counter = {"n": 0}
 
-    def fresh_outdir(label):
-        counter["n"] += 1
-        d = work / f"out{counter['n']:03d}_{label}"
-        assert not d.exists()
-        return d
+        def fresh_outdir(label):
+            counter["n"] += 1
+            d = work / f"out{counter['n']:03d}_{label}"
+            assert not d.exists()
+            return d
 
-    def discard(outdir):
-        if not args.keep:
-            shutil.rmtree(outdir, ignore_errors=True)
+        def discard(outdir):
+            if not args.keep:
+                shutil.rmtree(outdir, ignore_errors=True)
 
-    # --- warm-up: fills numba's on-disk cache if it is empty (not timed) -------------
-    warm_src = work / "warm_in"
-    warm_src.mkdir()
-    for p in sorted(corpora["long"]["folder"].glob("*.wav"))[:2]:
-        shutil.copy(p, warm_src / p.name)
-    warm_out = fresh_outdir("warm")
-    t0 = time.perf_counter()
-    run_cli_batch(warm_src, warm_out, workers=1, cwd=work)
-    print(f"warm-up: 2-file batch in {time.perf_counter() - t0:.2f} s (not counted; fills "
-          "numba's on-disk cache when it is empty)")
-    discard(warm_out)
+        # --- warm-up: fills numba's on-disk cache if it is empty (not timed) -------------
+        warm_src = work / "warm_in"
+        warm_src.mkdir()
+        for p in sorted(corpora["long"]["folder"].glob("*.wav"))[:2]:
+            shutil.copy(p, warm_src / p.name)
+        warm_out = fresh_outdir("warm")
+        t0 = time.perf_counter()
+        run_cli_batch(warm_src, warm_out, workers=1, cwd=work)
+        print(f"warm-up: 2-file batch in {time.perf_counter() - t0:.2f} s (not counted; fills "
+              "numba's on-disk cache when it is empty)")
+        discard(warm_out)
 
-    # --- timed runs, interleaved ------------------------------------------------------
-    configs = [
-        ("local1", "10 s files, local, 1 worker", "long", {"workers": 1}),
-        ("local2", "10 s files, local, 2 workers", "long", {"workers": 2}),
-    ]
-    if not args.no_dask:
-        if dask_version is None:
-            print("Dask: distributed not installed, configuration skipped")
-        else:
-            configs.append(("dask2", "10 s files, Dask, 2 workers", "long", {"dask": 2}))
-    configs.append(("short2", "1 s files, local, 2 workers", "short", {"workers": 2}))
-
-    def idle_gate():
-        if args.wait_idle <= 0:
-            return 0.0
-        waited, cores = wait_for_idle(args.wait_idle)
-        if cores >= 0.15:
-            print(f"  (machine still busy after waiting {waited:.0f} s: {cores:.2f} cores in use)")
-        return waited
-
-    runs = {c[0]: [] for c in configs}
-    last_outdir = {}
-    print(f"\nruns: {len(configs)} configurations x {repeats} repeat(s), interleaved; every run "
-          "into a fresh, empty output folder")
-    for rep in range(repeats):
-        for key, label, corpus_key, how in configs:
-            corpus = corpora[corpus_key]["folder"]
-            outdir = fresh_outdir(key)
-            if "dask" in how:
-                cluster = DaskCluster(work / f"dask{counter['n']:03d}", how["dask"])
-                try:
-                    cluster.start()
-                    roots = {p.pid: f"worker{i}" for i, p in enumerate(cluster.workers)}
-                    waited = idle_gate()
-                    r = run_cli_batch(corpus, outdir, scheduler=cluster.address, cwd=work,
-                                      extra_roots={**roots, cluster.scheduler.pid: "scheduler"})
-                finally:
-                    clean = cluster.stop()
-                client_mb, worker_mb, nanny_mb = dask_memory(r["sampler"], r["pid"], set(roots))
-                r.update(main_mb=client_mb, worker_mb=worker_mb, nanny_mb=nanny_mb,
-                         cluster_start_s=cluster.start_s, clean_shutdown=clean,
-                         workers=how["dask"])
+        # --- timed runs, interleaved ------------------------------------------------------
+        configs = [
+            ("local1", "10 s files, local, 1 worker", "long", {"workers": 1}),
+            ("local2", "10 s files, local, 2 workers", "long", {"workers": 2}),
+        ]
+        if not args.no_dask:
+            if dask_version is None:
+                print("Dask: distributed not installed, configuration skipped")
             else:
-                waited = idle_gate()
-                r = run_cli_batch(corpus, outdir, workers=how["workers"], cwd=work)
-                main_mb, worker_mb = local_memory(r["sampler"], r["pid"], how["workers"])
-                r.update(main_mb=main_mb, worker_mb=worker_mb, workers=how["workers"])
-            r["audio_s"] = corpora[corpus_key]["audio_s"]
-            r["waited_idle_s"] = waited
-            r["throughput"] = r["audio_s"] / r["wall_s"]
-            del r["sampler"]
-            runs[key].append(r)
-            extra = (f"; cluster up in {r['cluster_start_s']:.1f} s (not counted), shutdown "
-                     f"{'clean' if r['clean_shutdown'] else 'NOT clean'}" if "dask" in how else "")
-            busy = (f"  << other processes used {r['other_cores']:.2f} cores"
-                    if r["other_cores"] > OTHER_LOAD_WARN else "")
-            print(f"  [{rep + 1}/{repeats}] {label:<30s} wall {r['wall_s']:7.2f} s  "
-                  f"{r['throughput']:6.0f} audio h/h  CPU {r['cpu_s']:6.2f} s  "
-                  f"other load {r['other_cores']:.2f} cores{extra}{busy}")
-            if key in last_outdir:
-                discard(last_outdir[key])
-            last_outdir[key] = outdir
+                configs.append(("dask2", "10 s files, Dask, 2 workers", "long", {"dask": 2}))
+        configs.append(("short2", "1 s files, local, 2 workers", "short", {"workers": 2}))
 
-    # --- table -------------------------------------------------------------------------
-    def med(key, field):
-        return float(np.median([r[field] for r in runs[key]]))
+        def idle_gate():
+            if args.wait_idle <= 0:
+                return 0.0
+            waited, cores = wait_for_idle(args.wait_idle)
+            if cores >= 0.15:
+                print(f"  (machine still busy after waiting {waited:.0f} s: {cores:.2f} cores in use)")
+            return waited
 
-    summary = {}
-    for key, label, corpus_key, how in configs:
-        rs = runs[key]
-        fs = np.concatenate([r["file_seconds"] for r in rs])
-        summary[key] = {
-            "label": label, "files": rs[0]["files"], "audio_s": rs[0]["audio_s"],
-            "workers": rs[0]["workers"], "wall_s": med(key, "wall_s"),
-            "wall_s_runs": [r["wall_s"] for r in rs],
-            "throughput": float(np.median([r["throughput"] for r in rs])),
-            "cli_seconds": med(key, "cli_seconds"), "cli_xrt": med(key, "cli_xrt"),
-            "main_mb": max((r["main_mb"] or 0.0) for r in rs),
-            "worker_mb": [max(v) for v in zip(*[r["worker_mb"] for r in rs])]
-            if all(r["worker_mb"] for r in rs) else [],
-            "nanny_mb": [max(v) for v in zip(*[r["nanny_mb"] for r in rs])]
-            if all(r.get("nanny_mb") for r in rs) else [],
-            "other_cores_max": max(r["other_cores"] for r in rs),
-            "cpu_s": med(key, "cpu_s"),
-            "file_s_median": float(np.median(fs)), "file_s_sum": float(np.median(
-                [r["file_seconds"].sum() for r in rs])),
-            "file_s_max": float(np.max(fs)),
-            "cluster_start_s": (float(np.median([r["cluster_start_s"] for r in rs]))
-                                if "dask" in how else None),
-            "summary_line": rs[-1]["summary_line"], "cmd": rs[-1]["cmd"],
-        }
+        runs = {c[0]: [] for c in configs}
+        last_outdir = {}
+        print(f"\nruns: {len(configs)} configurations x {repeats} repeat(s), interleaved; every run "
+              "into a fresh, empty output folder")
+        for rep in range(repeats):
+            for key, label, corpus_key, how in configs:
+                corpus = corpora[corpus_key]["folder"]
+                outdir = fresh_outdir(key)
+                if "dask" in how:
+                    cluster = DaskCluster(work / f"dask{counter['n']:03d}", how["dask"])
+                    try:
+                        cluster.start()
+                        roots = {p.pid: f"worker{i}" for i, p in enumerate(cluster.workers)}
+                        waited = idle_gate()
+                        r = run_cli_batch(corpus, outdir, scheduler=cluster.address, cwd=work,
+                                          extra_roots={**roots, cluster.scheduler.pid: "scheduler"})
+                    finally:
+                        clean = cluster.stop()
+                    roles = dask_roles(r["sampler"], r["pid"], set(roots))
+                    r.update(cluster_start_s=cluster.start_s, clean_shutdown=clean,
+                             workers=how["dask"],
+                             nanny_mb=[mb for mb, _ in roles["nannies"]])
+                else:
+                    waited = idle_gate()
+                    r = run_cli_batch(corpus, outdir, workers=how["workers"], cwd=work)
+                    roles = local_roles(r["sampler"], r["pid"], how["workers"])
+                    r.update(workers=how["workers"])
+                r.update(main_mb=roles["main"][0], main_cpu_s=roles["main"][1],
+                         worker_mb=[mb for mb, _ in roles["workers"]],
+                         worker_cpu_s=[cpu for _, cpu in roles["workers"]])
+                r["audio_s"] = corpora[corpus_key]["audio_s"]
+                r["waited_idle_s"] = waited
+                r["throughput"] = r["audio_s"] / r["wall_s"]
+                del r["sampler"]
+                runs[key].append(r)
+                extra = (f"; cluster up in {r['cluster_start_s']:.1f} s (not counted), shutdown "
+                         f"{'clean' if r['clean_shutdown'] else 'NOT clean'}" if "dask" in how else "")
+                busy = (f"  << other processes used {r['other_cores']:.2f} cores"
+                        if r["other_cores"] > OTHER_LOAD_WARN else "")
+                print(f"  [{rep + 1}/{repeats}] {label:<30s} wall {r['wall_s']:7.2f} s  "
+                      f"{r['throughput']:6.0f} audio h/h  CPU {r['cpu_s']:6.2f} s  "
+                      f"other load {r['other_cores']:.2f} cores{extra}{busy}")
+                if key in last_outdir:
+                    discard(last_outdir[key])
+                last_outdir[key] = outdir
 
-    print()
-    head = (f"{'configuration':<30s}{'files':>6s}{'audio h':>9s}{'wall s':>8s}{'audio h/h':>10s}"
-            f"{'xRT cli':>8s}{'main MB':>8s}  {'worker MB':<11s}{'file s':>8s}{'CPU s':>8s}"
-            f"{'other':>7s}")
-    print(head)
-    print("-" * len(head))
-    for key, s in summary.items():
-        print(f"{s['label']:<30s}{s['files']:>6d}{s['audio_s'] / 3600:>9.3f}{s['wall_s']:>8.2f}"
-              f"{s['throughput']:>10.0f}{s['cli_xrt']:>8.0f}{s['main_mb']:>8.0f}  "
-              f"{fmt_mb(s['worker_mb']):<11s}{s['file_s_median']:>8.4f}{s['cpu_s']:>8.2f}"
-              f"{s['other_cores_max']:>7.2f}")
-    print(f"wall s: Popen to exit of `python -m harmtrack batch` (median of {repeats}), "
-          "start-up included;\naudio h/h: throughput, audio hours per wall hour (= x real "
-          "time on the wall clock);\nxRT cli: the CLI's own 'x real time' (its clock starts "
-          "after start-up, input scan and header reads);\nmain MB: peak RSS (VmHWM) of the "
-          "batch process (Dask: the client);\nworker MB: peak RSS of each worker process "
-          "(1 local worker: the batch process itself; Dask: the\nworker process under each "
-          "nanny); file s: median per-file seconds from summary.csv;\nCPU s: CPU seconds of all "
-          "processes of the run (Dask: client, scheduler, nannies, workers);\nother: CPU "
-          f"used meanwhile by processes outside the run, in cores (max over runs; > "
-          f"{OTHER_LOAD_WARN:g}: not an idle machine).")
-    if "dask2" in summary:
-        s = summary["dask2"]
-        print(f"Dask: cluster start-up (scheduler + 2 workers connected) {s['cluster_start_s']:.1f} s,"
-              f" not in wall s; nanny processes peak {fmt_mb(s['nanny_mb'])} MB.")
+        # --- table -------------------------------------------------------------------------
+        def med(key, field):
+            return float(np.median([r[field] for r in runs[key]]))
 
-    # --- breakdown -------------------------------------------------------------------
-    breakdown = {}
-    if not args.no_breakdown:
-        print("\nwhere the time goes")
-        py_s, _ = time_subprocess([sys.executable, "-c", "pass"], cwd=work)
-        imp_s, _ = time_subprocess([sys.executable, "-c", "import harmtrack"], cwd=work)
-        _, probe = time_subprocess([sys.executable, "-c", STARTUP_PROBE], cwd=work)
-        p_import, p_first, p_second = (float(v) for v in probe.split())
-        one_src = work / "one_in"
-        one_src.mkdir()
-        shutil.copy(sorted(corpora["short"]["folder"].glob("*.wav"))[0], one_src)
-        one_walls = []
-        for _ in range(3):
-            o = fresh_outdir("one")
-            one_walls.append(run_cli_batch(one_src, o, workers=1, cwd=work)["wall_s"])
-            discard(o)
-        one_s = float(np.median(one_walls))
-        breakdown["process"] = {"python_empty_s": py_s, "import_harmtrack_s": imp_s,
-                                "import_pipeline_s": p_import, "first_track_s": p_first,
-                                "second_track_s": p_second, "batch_1_file_1s_wall_s": one_s}
-        print(f"  fresh process: `python -c pass` {py_s:.3f} s; `import harmtrack` {imp_s:.3f} s "
-              f"(wall, both); importing the pipeline modules {p_import:.3f} s; first track call "
-              f"{p_first:.3f} s vs second {p_second:.3f} s\n    -> numba cache load etc. "
-              f"~{p_first - p_second:.3f} s per fresh process (each worker pays it once)")
-        print(f"  `harmtrack batch` of one 1 s file, 1 worker: {one_s:.3f} s wall (fixed cost "
-              "of a batch run)")
-        for key in ("long", "short"):
-            st = stage_times(corpora[key]["folder"], work / f"stages_{key}")
-            shutil.rmtree(work / f"stages_{key}", ignore_errors=True)
-            breakdown[f"stages_{key}"] = st
-            d = corpora[key]["duration_s"]
-            print(f"  per file, {d:g} s files (median of 20, this process): hash {st['hash'] * 1e3:.1f}"
-                  f" ms, load+hash {st['load'] * 1e3:.1f} ms, track {st['track'] * 1e3:.1f} ms, "
-                  f"write npz {st['write'] * 1e3:.1f} ms; total {st['total'] * 1e3:.1f} ms = "
-                  f"{st['total'] / d * 1e3:.1f} ms per audio s")
-        for key, cfg_key in (("long", "local2"), ("short", "short2")):
-            if cfg_key in last_outdir and last_outdir[cfg_key].exists():
-                asm = assembly_times(corpora[key]["folder"], last_outdir[cfg_key])
-                breakdown[f"assembly_{key}"] = asm
-                print(f"  assembly, {corpora[key]['files']} files: header scan {asm['headers']:.2f} s"
-                      f" (before the CLI's clock), read labels {asm['read_labels']:.2f} s, "
-                      f"parquet {asm['dataset']:.2f} s, summary {asm['summary']:.2f} s; "
-                      f"total {asm['total']:.2f} s")
+        summary = {}
+        for key, label, corpus_key, how in configs:
+            rs = runs[key]
+            fs = np.concatenate([r["file_seconds"] for r in rs])
+            summary[key] = {
+                "label": label, "files": rs[0]["files"], "audio_s": rs[0]["audio_s"],
+                "workers": rs[0]["workers"], "wall_s": med(key, "wall_s"),
+                "wall_s_runs": [r["wall_s"] for r in rs],
+                "throughput": float(np.median([r["throughput"] for r in rs])),
+                "cli_seconds": med(key, "cli_seconds"), "cli_xrt": med(key, "cli_xrt"),
+                "main_mb": max((r["main_mb"] or 0.0) for r in rs),
+                "worker_mb": [max(v) for v in zip(*[r["worker_mb"] for r in rs])]
+                if all(r["worker_mb"] for r in rs) else [],
+                "nanny_mb": [max(v) for v in zip(*[r["nanny_mb"] for r in rs])]
+                if all(r.get("nanny_mb") for r in rs) else [],
+                "other_cores_max": max(r["other_cores"] for r in rs),
+                "cpu_s": med(key, "cpu_s"), "main_cpu_s": med(key, "main_cpu_s"),
+                "worker_cpu_s": [float(np.median(v)) for v in zip(*[r["worker_cpu_s"] for r in rs])],
+                "file_s_median": float(np.median(fs)), "file_s_sum": float(np.median(
+                    [r["file_seconds"].sum() for r in rs])),
+                "file_s_max": float(np.max(fs)),
+                "cluster_start_s": (float(np.median([r["cluster_start_s"] for r in rs]))
+                                    if "dask" in how else None),
+                "summary_line": rs[-1]["summary_line"], "cmd": rs[-1]["cmd"],
+            }
+
+        print()
+        head = (f"{'configuration':<30s}{'files':>6s}{'audio h':>9s}{'wall s':>8s}{'audio h/h':>10s}"
+                f"{'xRT cli':>8s}{'main MB':>8s}  {'worker MB':<11s}{'file s':>8s}{'CPU s':>8s}"
+                f"{'other':>7s}")
+        print(head)
+        print("-" * len(head))
         for key, s in summary.items():
-            over = s["wall_s"] - s["file_s_sum"] / s["workers"]
-            breakdown[f"overhead_{key}"] = {"wall_minus_file_seconds_per_worker_s": over,
-                                            "wall_minus_cli_seconds_s": s["wall_s"] - s["cli_seconds"]}
-            print(f"  {s['label']:<30s}: sum of per-file s / workers {s['file_s_sum'] / s['workers']:6.2f} s"
-                  f", wall {s['wall_s']:6.2f} s -> {over:5.2f} s outside the files; CLI clock "
-                  f"{s['cli_seconds']:6.2f} s (start-up + scan {s['wall_s'] - s['cli_seconds']:.2f} s);"
-                  f" slowest file {s['file_s_max']:.3f} s")
+            print(f"{s['label']:<30s}{s['files']:>6d}{s['audio_s'] / 3600:>9.3f}{s['wall_s']:>8.2f}"
+                  f"{s['throughput']:>10.0f}{s['cli_xrt']:>8.0f}{s['main_mb']:>8.0f}  "
+                  f"{fmt_mb(s['worker_mb']):<11s}{s['file_s_median']:>8.4f}{s['cpu_s']:>8.2f}"
+                  f"{s['other_cores_max']:>7.2f}")
+        print(f"wall s: Popen to exit of `python -m harmtrack batch` (median of {repeats}), "
+              "start-up included;\naudio h/h: throughput, audio hours per wall hour (= x real "
+              "time on the wall clock);\nxRT cli: the CLI's own 'x real time' (its clock starts "
+              "after start-up, input scan and header reads);\nmain MB: peak RSS (VmHWM) of the "
+              "batch process (Dask: the client);\nworker MB: peak RSS of each worker process "
+              "(1 local worker: the batch process itself; Dask: the\nworker process under each "
+              "nanny); file s: median per-file seconds from summary.csv;\nCPU s: CPU seconds of all "
+              "processes of the run (Dask: client, scheduler, nannies, workers);\nother: CPU "
+              f"used meanwhile by processes outside the run, in cores (max over runs; > "
+              f"{OTHER_LOAD_WARN:g}: not an idle machine).")
+        if "dask2" in summary:
+            s = summary["dask2"]
+            print(f"Dask: cluster start-up (scheduler + 2 workers connected) {s['cluster_start_s']:.1f} s,"
+                  f" not in wall s; nanny processes peak {fmt_mb(s['nanny_mb'])} MB.")
 
-    # --- floors ------------------------------------------------------------------------
-    floors = []
+        # --- breakdown -------------------------------------------------------------------
+        breakdown = {}
+        if not args.no_breakdown:
+            print("\nwhere the time goes")
+            py_s, _ = time_subprocess([sys.executable, "-c", "pass"], cwd=work)
+            imp_s, _ = time_subprocess([sys.executable, "-c", "import harmtrack"], cwd=work)
+            _, probe = time_subprocess([sys.executable, "-c", STARTUP_PROBE], cwd=work)
+            p_import, p_first, p_second = (float(v) for v in probe.split())
+            one_src = work / "one_in"
+            one_src.mkdir()
+            shutil.copy(sorted(corpora["short"]["folder"].glob("*.wav"))[0], one_src)
+            one_walls = []
+            for _ in range(3):
+                o = fresh_outdir("one")
+                one_walls.append(run_cli_batch(one_src, o, workers=1, cwd=work)["wall_s"])
+                discard(o)
+            one_s = float(np.median(one_walls))
+            breakdown["process"] = {"python_empty_s": py_s, "import_harmtrack_s": imp_s,
+                                    "import_batch_and_numpy_s": p_import, "first_track_s": p_first,
+                                    "second_track_s": p_second, "batch_1_file_1s_wall_s": one_s}
+            print(f"  a fresh process: `python -c pass` {py_s:.3f} s, `python -c 'import harmtrack'` "
+                  f"{imp_s:.3f} s (wall);\n    inside it: numpy + harmtrack.batch imports {p_import:.3f} s, "
+                  f"first track call {p_first:.3f} s, second {p_second:.3f} s\n    -> numba cache load "
+                  f"and first-call set-up ~{p_first - p_second:.2f} s, paid once by every fresh worker")
+            print(f"  `harmtrack batch` of a single 1 s file (1 worker, in-process): {one_s:.2f} s wall "
+                  "= the fixed cost of a run")
 
-    def floor(name, ok, detail):
-        floors.append({"floor": name, "pass": bool(ok), "detail": detail})
+            # analysis alone vs the worker's whole per-file job
+            for key, cfg_key in (("long", "local1"), ("short", "short2")):
+                if cfg_key not in summary:
+                    continue
+                ana = analysis_times(corpora[key]["folder"])
+                d = corpora[key]["duration_s"]
+                job = summary[cfg_key]["file_s_median"]
+                breakdown[f"per_file_{key}"] = {"track_file_s": ana, "batch_file_s": job,
+                                                "batch_config": cfg_key}
+                print(f"  per file, {d:g} s files: harmtrack.track_file {ana * 1e3:.1f} ms here; the "
+                      f"batch's per-file seconds ({summary[cfg_key]['label']}) {job * 1e3:.1f} ms\n"
+                      f"    = {ana / d * 1e3:.2f} vs {job / d * 1e3:.2f} ms per audio second")
 
-    t1, t2 = summary["local1"]["throughput"], summary["local2"]["throughput"]
-    floor(f"2 local workers >= {SCALING_FLOOR:g} x 1 worker", t2 >= SCALING_FLOOR * t1,
-          f"{t2 / t1:.2f} x ({t2:.0f} vs {t1:.0f} audio h/h)")
-    ts = summary["short2"]["throughput"]
-    floor(f"1 s files >= {SHORT_FILE_FLOOR * 100:g} % of 10 s files (2 workers)",
-          ts >= SHORT_FILE_FLOOR * t2, f"{100 * ts / t2:.0f} % ({ts:.0f} vs {t2:.0f} audio h/h)")
-    busy_runs = sum(r["other_cores"] > OTHER_LOAD_WARN for rs in runs.values() for r in rs)
-    print("\nfloors" + (f"  (note: {busy_runs} run(s) shared the machine with other load)"
-                        if busy_runs else ""))
-    for f in floors:
-        print(f"  {'PASS' if f['pass'] else 'FAIL'}  {f['floor']:<46s} {f['detail']}")
-    n_fail = sum(not f["pass"] for f in floors)
+            # dataset assembly: the same runs with --no-dataset (public option)
+            nods = {}
+            for rep in range(repeats):
+                for key, _, corpus_key, how in configs:
+                    if key not in ("local2", "short2"):
+                        continue
+                    o = fresh_outdir(key + "_nods")
+                    idle_gate()
+                    r = run_cli_batch(corpora[corpus_key]["folder"], o, workers=how["workers"],
+                                      cwd=work, extra_args=["--no-dataset"])
+                    nods.setdefault(key, []).append(r["wall_s"])
+                    discard(o)
+            for key, walls in nods.items():
+                w = float(np.median(walls))
+                breakdown[f"no_dataset_{key}"] = {"wall_s": w, "runs": walls,
+                                                  "dataset_cost_s": summary[key]["wall_s"] - w}
+                print(f"  {summary[key]['label']}: with --no-dataset {w:.2f} s wall vs "
+                      f"{summary[key]['wall_s']:.2f} s -> the Parquet dataset costs "
+                      f"{summary[key]['wall_s'] - w:.2f} s")
 
-    if args.json:
-        doc = {
-            "settings": {"sr": SR, "preset": PRESET, "formats": FORMATS, "repeats": repeats,
-                         "quick": args.quick, "corpora": {k: {kk: str(vv) if kk == "folder" else vv
-                                                              for kk, vv in v.items()}
-                                                          for k, v in corpora.items()},
-                         "corpus_recipe": {k: corpus_recipe(v["files"], v["duration_s"],
-                                                            SEED_LONG if k == "long" else SEED_SHORT)
-                                           for k, v in corpora.items()},
-                         "floors": {"scaling": SCALING_FLOOR, "short_files": SHORT_FILE_FLOOR}},
-            "environment": {"harmtrack": harmtrack.__version__, "numpy": np.__version__,
-                            "distributed": dask_version, "python": platform.python_version(),
-                            "machine": platform.machine(), "cpus": cpus,
-                            "load_average_1min": load[0]},
-            "runs": {k: [{kk: (vv.tolist() if isinstance(vv, np.ndarray) else vv)
-                          for kk, vv in r.items()} for r in rs] for k, rs in runs.items()},
-            "summary": summary, "breakdown": breakdown, "floors": floors,
-            "failed_floors": n_fail,
-        }
-        args.json.parent.mkdir(parents=True, exist_ok=True)
-        args.json.write_text(json.dumps(doc, indent=2, default=float) + "\n")
-        print(f"\nwrote {args.json}")
+            # per run: the files' own seconds against the wall clock, CPU by process
+            print("  per configuration (medians): wall = start-up and input scan (wall - CLI clock) "
+                  "+ CLI clock;\n  'in files' = sum of per-file seconds / workers; CPU s of the "
+                  "main process and of each worker")
+            for key, s in summary.items():
+                files_per_worker = s["file_s_sum"] / s["workers"]
+                breakdown[f"overhead_{key}"] = {
+                    "startup_and_scan_s": s["wall_s"] - s["cli_seconds"],
+                    "in_files_per_worker_s": files_per_worker,
+                    "outside_files_s": s["wall_s"] - files_per_worker,
+                    "main_cpu_s": s["main_cpu_s"], "worker_cpu_s": s["worker_cpu_s"]}
+                print(f"    {s['label']:<30s} wall {s['wall_s']:6.2f} = {s['wall_s'] - s['cli_seconds']:4.2f}"
+                      f" + {s['cli_seconds']:6.2f}; in files {files_per_worker:6.2f}; outside "
+                      f"{s['wall_s'] - files_per_worker:5.2f}; CPU main {s['main_cpu_s']:5.2f}, workers "
+                      f"{'/'.join(f'{v:.2f}' for v in s['worker_cpu_s']) or '-'}; slowest file "
+                      f"{s['file_s_max']:.2f} s")
 
-    if args.keep:
-        print(f"\noutput folders kept in {work}")
-    else:
-        shutil.rmtree(work, ignore_errors=True)
+        # --- floors ------------------------------------------------------------------------
+        floors = []
+
+        def floor(name, ok, detail):
+            floors.append({"floor": name, "pass": bool(ok), "detail": detail})
+
+        t1, t2 = summary["local1"]["throughput"], summary["local2"]["throughput"]
+        floor(f"2 local workers >= {SCALING_FLOOR:g} x 1 worker", t2 >= SCALING_FLOOR * t1,
+              f"{t2 / t1:.2f} x ({t2:.0f} vs {t1:.0f} audio h/h)")
+        ts = summary["short2"]["throughput"]
+        floor(f"1 s files >= {SHORT_FILE_FLOOR * 100:g} % of 10 s files (2 workers)",
+              ts >= SHORT_FILE_FLOOR * t2, f"{100 * ts / t2:.0f} % ({ts:.0f} vs {t2:.0f} audio h/h)")
+        busy_runs = sum(r["other_cores"] > OTHER_LOAD_WARN for rs in runs.values() for r in rs)
+        print("\nfloors" + (f"  (note: {busy_runs} run(s) shared the machine with other load)"
+                            if busy_runs else ""))
+        for f in floors:
+            print(f"  {'PASS' if f['pass'] else 'FAIL'}  {f['floor']:<46s} {f['detail']}")
+        n_fail = sum(not f["pass"] for f in floors)
+
+        if args.json:
+            doc = {
+                "settings": {"sr": SR, "preset": PRESET, "formats": FORMATS, "repeats": repeats,
+                             "quick": args.quick, "corpora": {k: {kk: str(vv) if kk == "folder" else vv
+                                                                  for kk, vv in v.items()}
+                                                              for k, v in corpora.items()},
+                             "corpus_recipe": {k: corpus_recipe(v["files"], v["duration_s"],
+                                                                SEED_LONG if k == "long" else SEED_SHORT)
+                                               for k, v in corpora.items()},
+                             "floors": {"scaling": SCALING_FLOOR, "short_files": SHORT_FILE_FLOOR}},
+                "environment": {"harmtrack": harmtrack.__version__, "numpy": np.__version__,
+                                "distributed": dask_version, "python": platform.python_version(),
+                                "machine": platform.machine(), "cpus": cpus,
+                                "load_average_1min": load[0]},
+                "runs": {k: [{kk: (vv.tolist() if isinstance(vv, np.ndarray) else vv)
+                              for kk, vv in r.items()} for r in rs] for k, rs in runs.items()},
+                "summary": summary, "breakdown": breakdown, "floors": floors,
+                "failed_floors": n_fail,
+            }
+            args.json.parent.mkdir(parents=True, exist_ok=True)
+            args.json.write_text(json.dumps(doc, indent=2, default=float) + "\n")
+            print(f"\nwrote {args.json}")
+
+    finally:
+        if args.keep:
+            print(f"\noutput folders kept in {work}")
+        else:
+            shutil.rmtree(work, ignore_errors=True)
     print(f"\nfailed floors: {n_fail} of {len(floors)}")
     return 1 if n_fail else 0
 

@@ -68,22 +68,24 @@ def file_stats(cols: dict, prov: dict) -> dict:
     }
 
 
-def _arrow_table(task, cols):
-    import pyarrow as pa
+#: Rows gathered before a row group is written: few, large row groups read fast
+#: and cost the writing process little per file.
+ROW_GROUP_ROWS = 262144
 
-    n = cols["time_s"].shape[0]
-    arrays = {"file_id": pa.array(np.full(n, task.file_id, dtype=np.int32)),
-              "name": pa.array([task.name] * n, type=pa.string()).dictionary_encode()}
+
+def _arrow_columns(cols: dict) -> dict:
+    """The label columns with the dataset's types (in label-file order)."""
+    out = {}
     for key, arr in cols.items():
         if key in _SKIP:
             continue
         if arr.dtype == bool:
-            arrays[key] = pa.array(arr)
+            out[key] = np.asarray(arr, dtype=bool)
         elif key == "model_order":
-            arrays[key] = pa.array(arr.astype(np.int32))
+            out[key] = np.asarray(arr, dtype=np.int32)
         else:
-            arrays[key] = pa.array(np.asarray(arr, dtype=np.float64))
-    return pa.table(arrays)
+            out[key] = np.asarray(arr, dtype=np.float64)
+    return out
 
 
 class DatasetWriter:
@@ -96,42 +98,68 @@ class DatasetWriter:
     ``harmtrack`` holds the provenance: tool version, settings, and each file's
     name, SHA-256 and batch key.  Rows go to a temporary file next to ``path``,
     renamed over it by :meth:`close`: a killed run leaves no partial dataset.
-    Memory holds one file's table at a time.
+    Memory holds up to :data:`ROW_GROUP_ROWS` frames.
     """
 
     def __init__(self, path: Path):
         try:
-            import pyarrow  # noqa: F401
             import pyarrow.parquet  # noqa: F401
         except ImportError:
             raise HarmtrackError("the frame dataset needs pyarrow: pip install pyarrow") from None
         self.path = Path(path)
         self._tmp = self.path.with_name(f".{self.path.name}.writing.tmp")
         self._writer = None
-        self._schema = None
+        self._keys = None
+        self._buffer: list = []
+        self._rows = 0
         self._files: list = []
         self._head: dict = {}
 
     def add(self, task, cols: dict, prov: dict) -> None:
         """Append one file's frames (files must come in input order)."""
-        import pyarrow.parquet as pq
-
-        table = _arrow_table(task, cols)
-        if self._writer is None:
-            self._schema = table.schema
-            self._writer = pq.ParquetWriter(os.fspath(self._tmp), self._schema,
-                                            compression="zstd", use_dictionary=["name"])
+        arrays = _arrow_columns(cols)
+        keys = tuple((k, a.dtype.str) for k, a in arrays.items())
+        if self._keys is None:
+            self._keys = keys
             self._head = {"tool": prov.get("tool"), "version": prov.get("version"),
                           "settings": prov.get("settings")}
-        elif not table.schema.equals(self._schema):
+        elif keys != self._keys:
             raise HarmtrackError(f"{task.name}: its label columns differ from the other files'")
-        self._writer.write_table(table)
+        self._buffer.append((task.file_id, task.name, arrays))
+        self._rows += arrays["time_s"].shape[0]
         self._files.append({"file_id": task.file_id, "name": task.name,
                             "sha256": (prov.get("input") or {}).get("sha256"),
                             "batch_key": (prov.get("batch") or {}).get("key")})
+        if self._rows >= ROW_GROUP_ROWS:
+            self._flush()
+
+    def _flush(self) -> None:
+        import pyarrow as pa
+        import pyarrow.parquet as pq
+
+        if not self._buffer:
+            return
+        counts = [a["time_s"].shape[0] for _, _, a in self._buffer]
+        names = [n for _, n, _ in self._buffer]
+        data = {
+            "file_id": pa.array(np.repeat([f for f, _, _ in self._buffer], counts).astype(np.int32)),
+            "name": pa.DictionaryArray.from_arrays(
+                pa.array(np.repeat(np.arange(len(names), dtype=np.int32), counts)),
+                pa.array(names, type=pa.string())),
+        }
+        for key, _ in self._keys:
+            data[key] = pa.array(np.concatenate([a[key] for _, _, a in self._buffer]))
+        table = pa.table(data)
+        if self._writer is None:
+            self._writer = pq.ParquetWriter(os.fspath(self._tmp), table.schema,
+                                            compression="zstd", use_dictionary=["name"])
+        self._writer.write_table(table, row_group_size=max(1, table.num_rows))
+        self._buffer = []
+        self._rows = 0
 
     def close(self) -> Path | None:
         """Finish the file and put it in place; None when no file had frames."""
+        self._flush()
         if self._writer is None:
             return None
         meta = dict(self._head, files=self._files)
