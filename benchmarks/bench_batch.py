@@ -19,8 +19,12 @@ the per-file work and the assembly of the dataset and the summary):
 * the 1 s corpus with 2 local workers.
 
 The peak resident memory (VmHWM) of every process is sampled while it runs.
-A breakdown section measures where the time goes (interpreter and import,
-numba cache load in a fresh process, per-file stages, assembly).  See
+The CPU time of every process of a run and the CPU used meanwhile by other
+processes of the machine are recorded too (a run that shared the machine is
+flagged).  A breakdown section measures where the time goes: a fresh process
+(interpreter, imports, numba cache load), the fixed cost of a one-file batch,
+the analysis alone against the batch's per-file seconds, the Parquet dataset
+(the same runs with ``--no-dataset``), and CPU by process.  See
 ``benchmarks/README.md`` ("Batch benchmark") for the columns.
 
 The script is a report run by hand, not a test.  It exits with status 1 when a
@@ -112,7 +116,7 @@ def render_file(seed, j, duration_s):
     """One speech-like recording: a phrase contour, a source-filter voice, white noise."""
     rng = np.random.default_rng(seed)
     f0_base = SPEAKERS[j % len(SPEAKERS)]
-    n_vowels = max(1, int(round(duration_s / 0.5)))
+    n_vowels = max(1, round(duration_s / 0.5))
     vowels = tuple(rng.choice(VOWELS, size=n_vowels))
     times, f0 = synth.f0_contour(duration_s, hop_s=HOP_S, kind="phrase", f0_hz=f0_base,
                                  seed=seed)
@@ -281,6 +285,8 @@ class MemorySampler:
         self.cpu_last = {}   # pid -> CPU seconds when last seen
         self.info = {}      # pid -> (tree label, parent pid or None, cmdline)
         self.before = set()  # pids that existed before the run
+        self.batch_pid = None
+        self.epoch0 = None
         self._stop = threading.Event()
         self._thread = threading.Thread(target=self._loop, daemon=True)
 
@@ -357,10 +363,13 @@ def dask_roles(sampler, batch_pid, worker_roots):
     ``dask worker`` runs a nanny process that starts the actual worker as its
     child; the worker is what does the tracking.  "main" is the batch client.
     """
-    main, wk, nannies = None, [], []
-    for pid, _, ppid, cmd, mb, cpu in sampler.processes():
+    main, wk, nannies, sched = None, [], [], (None, None)
+    for pid, tree, ppid, cmd, mb, cpu in sampler.processes():
         if pid == batch_pid:
             main = (mb, cpu)
+        elif tree == "scheduler":
+            if ppid not in sampler.roots:  # the scheduler itself, not a helper of it
+                sched = (mb, cpu)
         elif pid in worker_roots:
             nannies.append((mb, cpu))
         elif ppid in worker_roots and not _is_helper(cmd):
@@ -368,7 +377,7 @@ def dask_roles(sampler, batch_pid, worker_roots):
     if not wk:  # workers without a nanny: the root itself works
         wk, nannies = nannies, []
     return {"main": main or (None, None), "workers": sorted(wk, reverse=True),
-            "nannies": sorted(nannies, reverse=True)}
+            "nannies": sorted(nannies, reverse=True), "scheduler": sched}
 
 
 # ---------------------------------------------------------------------------
@@ -400,42 +409,21 @@ def run_cli_batch(corpus, outdir, *, workers=None, scheduler=None, cwd, extra_ro
     if scheduler is not None:
         cmd += ["--scheduler", scheduler]
     cmd += list(extra_args)
-    out_f = tempfile.TemporaryFile(mode="w+")
-    err_f = tempfile.TemporaryFile(mode="w+")
-    roots = dict(extra_roots or {})
-    sampler = MemorySampler(roots)
-    sampler.sample()  # CPU times of the cluster's processes before the run
-    sampler.before = set(sampler.info)
-    busy0 = machine_busy_s()
-    t0 = time.perf_counter()
-    proc = subprocess.Popen(cmd, stdout=out_f, stderr=err_f, cwd=str(cwd), env=child_env())
-    sampler.roots[proc.pid] = "batch"
-    sampler.start()
-    timer = threading.Timer(RUN_TIMEOUT_S, proc.kill)  # ends only this run's process
-    timer.start()
-    # wait4: the exit status and the CPU time of the batch and every process it reaped
-    _, status, usage = os.wait4(proc.pid, 0)
-    wall = time.perf_counter() - t0
-    busy1 = machine_busy_s()
-    timer.cancel()
-    proc.returncode = os.waitstatus_to_exitcode(status)
-    rc = proc.returncode
-    sampler.stop()
-    sampler.sample()  # the cluster's CPU times after the run
+    with tempfile.TemporaryFile(mode="w+") as out_f, tempfile.TemporaryFile(mode="w+") as err_f:
+        rc, wall, usage, busy, sampler = _run_sampled(cmd, cwd, out_f, err_f, extra_roots)
+        out_f.seek(0)
+        err_f.seek(0)
+        stdout, stderr = out_f.read(), err_f.read()
+    busy0, busy1 = busy
     ours = usage.ru_utime + usage.ru_stime + sampler.cpu_used_s(extra_roots or {})
-    ours += sampler.cpu_used_s([p for p, (label, ppid, _) in sampler.info.items()
+    ours += sampler.cpu_used_s([p for p, (_, ppid, _) in sampler.info.items()
                                 if ppid in (extra_roots or {})])
     machine = (busy1 - busy0) if busy0 is not None and busy1 is not None else float("nan")
     # CPU used by processes that are not part of this run, as cores over the run
     other_cores = max(0.0, machine - ours) / wall
-    if rc is not None and rc < 0:
+    if rc < 0:
         raise RuntimeError(f"batch killed (signal {-rc}; timeout {RUN_TIMEOUT_S:g} s): "
                            f"{' '.join(cmd)}")
-    out_f.seek(0)
-    err_f.seek(0)
-    stdout, stderr = out_f.read(), err_f.read()
-    out_f.close()
-    err_f.close()
     if rc != 0:
         tail = "\n".join(stderr.strip().splitlines()[-15:])
         raise RuntimeError(f"batch failed with exit status {rc}: {' '.join(cmd)}\n{tail}")
@@ -446,12 +434,54 @@ def run_cli_batch(corpus, outdir, *, workers=None, scheduler=None, cwd, extra_ro
     if int(m["ok"]) != n:
         raise RuntimeError(f"expected all {n} files labelled in a fresh folder, got: "
                            f"{m.group(0)}")
-    rows, secs = read_summary(outdir / "summary.csv")
-    return {"cmd": cmd, "pid": proc.pid, "wall_s": wall, "files": n, "cpu_s": ours,
-            "other_cores": other_cores,
+    _, secs = read_summary(outdir / "summary.csv")
+    return {"cmd": cmd, "pid": sampler.batch_pid, "wall_s": wall, "files": n, "cpu_s": ours,
+            "other_cores": other_cores, "timeline": timeline(outdir, sampler.epoch0, wall),
             "cli_seconds": float(m["seconds"]), "cli_xrt": float(m["xrt"]),
             "summary_line": stdout.strip().splitlines()[0], "file_seconds": secs,
             "sampler": sampler}
+
+
+def timeline(outdir, epoch0, wall):
+    """When the outputs were written, in seconds after the batch process was started.
+
+    From the files' modification times: the first and the last per-file label
+    file, the dataset and the summary; ``exit_s`` is the wall time.
+    """
+    outdir = Path(outdir)
+    times = [p.stat().st_mtime for p in outdir.rglob("*." + FORMATS)]
+    out = {"first_label_s": min(times) - epoch0 if times else None,
+           "last_label_s": max(times) - epoch0 if times else None, "exit_s": wall}
+    for key, name in (("dataset_s", "frames.parquet"), ("summary_s", "summary.csv")):
+        f = outdir / name
+        out[key] = f.stat().st_mtime - epoch0 if f.exists() else None
+    return out
+
+
+def _run_sampled(cmd, cwd, out_f, err_f, extra_roots):
+    """Run ``cmd`` to its end while sampling memory and CPU; the wall clock is Popen to exit."""
+    roots = dict(extra_roots or {})
+    sampler = MemorySampler(roots)
+    sampler.sample()  # CPU times of the cluster's processes before the run
+    sampler.before = set(sampler.info)
+    busy0 = machine_busy_s()
+    sampler.epoch0 = time.time()  # file times (mtime) are read against this clock
+    t0 = time.perf_counter()
+    proc = subprocess.Popen(cmd, stdout=out_f, stderr=err_f, cwd=str(cwd), env=child_env())
+    sampler.roots[proc.pid] = "batch"
+    sampler.batch_pid = proc.pid
+    sampler.start()
+    timer = threading.Timer(RUN_TIMEOUT_S, proc.kill)  # ends only this run's process
+    timer.start()
+    # wait4: the exit status and the CPU time of the batch and every process it reaped
+    _, status, usage = os.wait4(proc.pid, 0)
+    wall = time.perf_counter() - t0
+    busy1 = machine_busy_s()
+    timer.cancel()
+    proc.returncode = os.waitstatus_to_exitcode(status)
+    sampler.stop()
+    sampler.sample()  # the cluster's CPU times after the run
+    return proc.returncode, wall, usage, (busy0, busy1), sampler
 
 
 # ---------------------------------------------------------------------------
@@ -473,7 +503,8 @@ def dask_command(tool):
     found = shutil.which("dask")
     if found:
         return [found, tool]
-    raise RuntimeError("dask's command-line tool is not installed (pip install 'dask[distributed]')")
+    raise RuntimeError("dask's command-line tool is not installed "
+                       "(pip install 'dask[distributed]')")
 
 
 class DaskCluster:
@@ -489,10 +520,13 @@ class DaskCluster:
         self._logs = []
 
     def _popen(self, cmd, log_name):
-        log = open(self.workdir / log_name, "w")
+        log = open(self.workdir / log_name, "w")  # noqa: SIM115 - closed in stop()
         self._logs.append(log)
+        env = child_env()
+        # scratch space of the scheduler and workers inside the run's folder, not in /tmp
+        env["DASK_TEMPORARY_DIRECTORY"] = str(self.workdir)
         return subprocess.Popen(cmd, stdout=log, stderr=subprocess.STDOUT, cwd=str(self.workdir),
-                                env=child_env())
+                                env=env)
 
     def log_tail(self, n=10):
         out = []
@@ -539,7 +573,7 @@ class DaskCluster:
         try:
             with Client(self.address, timeout="30s") as client:
                 client.wait_for_workers(self.n_workers, timeout=CLUSTER_TIMEOUT_S)
-        except Exception as exc:
+        except Exception as exc:  # noqa: BLE001 - reported with the logs
             raise RuntimeError(f"Dask workers did not connect: {exc}\n" + self.log_tail()) from None
         self.start_s = time.perf_counter() - t0
         return self
@@ -593,13 +627,55 @@ print(t1 - t0, t2 - t1, t3 - t2)
 """
 
 
+MALLOC_PROBE = r"""
+import sys, time, glob
+import harmtrack
+files = sorted(glob.glob(sys.argv[1] + "/*.wav"))[:int(sys.argv[2])]
+harmtrack.track_file(files[0], preset=sys.argv[3])
+secs = []
+for f in files:
+    t0 = time.perf_counter()
+    harmtrack.track_file(f, preset=sys.argv[3])
+    secs.append(time.perf_counter() - t0)
+secs.sort()
+print(secs[len(secs) // 2])
+"""
+
+
+def _dask_prespawn_environ():
+    """The environment dask's nanny sets in the worker processes it starts ({} if none)."""
+    try:
+        import dask
+        import distributed  # noqa: F401 - loads distributed's configuration
+
+        env = dask.config.get("distributed.nanny.pre-spawn-environ", default={}) or {}
+    except ImportError:
+        return {}
+    return {str(k): str(v) for k, v in env.items() if k not in os.environ}
+
+
+def malloc_probe(corpus, env_set, cwd, n=30):
+    """Median ``track_file`` seconds in a fresh process without and with ``env_set``."""
+    out = []
+    for extra in ({}, env_set):
+        env = child_env()
+        env.update(extra)
+        p = subprocess.run([sys.executable, "-c", MALLOC_PROBE, str(corpus), str(n), PRESET],
+                           capture_output=True, text=True, cwd=str(cwd), env=env, timeout=600,
+                           check=False)
+        if p.returncode != 0:
+            raise RuntimeError(f"probe failed: {p.stderr.strip()[-300:]}")
+        out.append(float(p.stdout.split()[-1]))
+    return tuple(out)
+
+
 def time_subprocess(cmd, *, cwd, repeats=3):
     """Median wall time of a command (and its last stdout)."""
     walls, out = [], ""
     for _ in range(repeats):
         t0 = time.perf_counter()
         p = subprocess.run(cmd, capture_output=True, text=True, cwd=str(cwd), env=child_env(),
-                           timeout=600)
+                           timeout=600, check=False)
         walls.append(time.perf_counter() - t0)
         if p.returncode != 0:
             raise RuntimeError(f"{' '.join(cmd)} failed: {p.stderr.strip()[-300:]}")
@@ -641,7 +717,8 @@ def main(argv=None):
     ap.add_argument("--quick", action="store_true",
                     help=f"{QUICK_LONG[0]} x {QUICK_LONG[1]:g} s and {QUICK_SHORT[0]} x "
                          f"{QUICK_SHORT[1]:g} s files, one run per configuration")
-    ap.add_argument("--data", type=Path, default=Path(tempfile.gettempdir()) / "harmtrack_bench_batch",
+    ap.add_argument("--data", type=Path,
+                    default=Path(tempfile.gettempdir()) / "harmtrack_bench_batch",
                     help="folder of the synthetic corpus, built once and reused "
                          "(default: %(default)s)")
     ap.add_argument("--repeats", type=int, default=None,
@@ -676,7 +753,8 @@ def main(argv=None):
           f"distributed {dask_version or 'not installed'} | psutil "
           f"{psutil.__version__ if psutil else 'not installed (/proc)'} | python "
           f"{platform.python_version()} | {platform.machine()}")
-    print(f"threads: 1 per process (env vars{' + threadpoolctl' if _single_thread.THREAD_LIMITER else ''}"
+    limiter = " + threadpoolctl" if _single_thread.THREAD_LIMITER else ""
+    print(f"threads: 1 per process (env vars{limiter}"
           f", inherited by every subprocess) | load average {load[0]:.2f} on {cpus} CPUs"
           + ("  << machine is busy: timings are unreliable"
              if load[0] > max(0.5, 0.25 * cpus) else ""))
@@ -736,12 +814,14 @@ def main(argv=None):
                 return 0.0
             waited, cores = wait_for_idle(args.wait_idle)
             if cores >= 0.15:
-                print(f"  (machine still busy after waiting {waited:.0f} s: {cores:.2f} cores in use)")
+                print(f"  (machine still busy after waiting {waited:.0f} s: {cores:.2f} cores "
+                      "in use)")
             return waited
 
         runs = {c[0]: [] for c in configs}
         last_outdir = {}
-        print(f"\nruns: {len(configs)} configurations x {repeats} repeat(s), interleaved; every run "
+        print(f"\nruns: {len(configs)} configurations x {repeats} repeat(s), interleaved; "
+              "every run "
               "into a fresh, empty output folder")
         for rep in range(repeats):
             for key, label, corpus_key, how in configs:
@@ -760,7 +840,10 @@ def main(argv=None):
                     roles = dask_roles(r["sampler"], r["pid"], set(roots))
                     r.update(cluster_start_s=cluster.start_s, clean_shutdown=clean,
                              workers=how["dask"],
-                             nanny_mb=[mb for mb, _ in roles["nannies"]])
+                             nanny_mb=[mb for mb, _ in roles["nannies"]],
+                         nanny_cpu_s=[cpu for _, cpu in roles["nannies"]],
+                         scheduler_mb=roles["scheduler"][0],
+                         scheduler_cpu_s=roles["scheduler"][1])
                 else:
                     waited = idle_gate()
                     r = run_cli_batch(corpus, outdir, workers=how["workers"], cwd=work)
@@ -774,8 +857,10 @@ def main(argv=None):
                 r["throughput"] = r["audio_s"] / r["wall_s"]
                 del r["sampler"]
                 runs[key].append(r)
-                extra = (f"; cluster up in {r['cluster_start_s']:.1f} s (not counted), shutdown "
-                         f"{'clean' if r['clean_shutdown'] else 'NOT clean'}" if "dask" in how else "")
+                extra = ""
+                if "dask" in how:
+                    extra = (f"; cluster up in {r['cluster_start_s']:.1f} s (not counted), "
+                             f"shutdown {'clean' if r['clean_shutdown'] else 'NOT clean'}")
                 busy = (f"  << other processes used {r['other_cores']:.2f} cores"
                         if r["other_cores"] > OTHER_LOAD_WARN else "")
                 print(f"  [{rep + 1}/{repeats}] {label:<30s} wall {r['wall_s']:7.2f} s  "
@@ -806,17 +891,27 @@ def main(argv=None):
                 if all(r.get("nanny_mb") for r in rs) else [],
                 "other_cores_max": max(r["other_cores"] for r in rs),
                 "cpu_s": med(key, "cpu_s"), "main_cpu_s": med(key, "main_cpu_s"),
-                "worker_cpu_s": [float(np.median(v)) for v in zip(*[r["worker_cpu_s"] for r in rs])],
+                "worker_cpu_s": [float(np.median(v))
+                                 for v in zip(*[r["worker_cpu_s"] for r in rs])],
                 "file_s_median": float(np.median(fs)), "file_s_sum": float(np.median(
                     [r["file_seconds"].sum() for r in rs])),
                 "file_s_max": float(np.max(fs)),
                 "cluster_start_s": (float(np.median([r["cluster_start_s"] for r in rs]))
                                     if "dask" in how else None),
+                "scheduler_mb": (max(r["scheduler_mb"] or 0.0 for r in rs)
+                                 if "dask" in how else None),
+                "scheduler_cpu_s": med(key, "scheduler_cpu_s") if "dask" in how else None,
+                "nanny_cpu_s": ([float(np.median(v)) for v in zip(*[r["nanny_cpu_s"] for r in rs])]
+                                if "dask" in how else []),
+                "timeline": {k: float(np.median([r["timeline"][k] for r in rs]))
+                             for k in rs[0]["timeline"]
+                             if all(r["timeline"][k] is not None for r in rs)},
                 "summary_line": rs[-1]["summary_line"], "cmd": rs[-1]["cmd"],
             }
 
         print()
-        head = (f"{'configuration':<30s}{'files':>6s}{'audio h':>9s}{'wall s':>8s}{'audio h/h':>10s}"
+        head = (f"{'configuration':<30s}{'files':>6s}{'audio h':>9s}{'wall s':>8s}"
+                f"{'audio h/h':>10s}"
                 f"{'xRT cli':>8s}{'main MB':>8s}  {'worker MB':<11s}{'file s':>8s}{'CPU s':>8s}"
                 f"{'other':>7s}")
         print(head)
@@ -832,14 +927,17 @@ def main(argv=None):
               "after start-up, input scan and header reads);\nmain MB: peak RSS (VmHWM) of the "
               "batch process (Dask: the client);\nworker MB: peak RSS of each worker process "
               "(1 local worker: the batch process itself; Dask: the\nworker process under each "
-              "nanny); file s: median per-file seconds from summary.csv;\nCPU s: CPU seconds of all "
+              "nanny); file s: median per-file seconds from summary.csv;\n"
+              "CPU s: CPU seconds of all "
               "processes of the run (Dask: client, scheduler, nannies, workers);\nother: CPU "
               f"used meanwhile by processes outside the run, in cores (max over runs; > "
               f"{OTHER_LOAD_WARN:g}: not an idle machine).")
         if "dask2" in summary:
             s = summary["dask2"]
-            print(f"Dask: cluster start-up (scheduler + 2 workers connected) {s['cluster_start_s']:.1f} s,"
-                  f" not in wall s; nanny processes peak {fmt_mb(s['nanny_mb'])} MB.")
+            print("Dask: cluster start-up (scheduler + 2 workers connected) "
+                  f"{s['cluster_start_s']:.1f} s,"
+                  f" not in wall s; peak RSS: scheduler {s['scheduler_mb']:.0f} MB, nannies "
+                  f"{fmt_mb(s['nanny_mb'])} MB.")
 
         # --- breakdown -------------------------------------------------------------------
         breakdown = {}
@@ -851,7 +949,7 @@ def main(argv=None):
             p_import, p_first, p_second = (float(v) for v in probe.split())
             one_src = work / "one_in"
             one_src.mkdir()
-            shutil.copy(sorted(corpora["short"]["folder"].glob("*.wav"))[0], one_src)
+            shutil.copy(min(corpora["short"]["folder"].glob("*.wav")), one_src)
             one_walls = []
             for _ in range(3):
                 o = fresh_outdir("one")
@@ -861,12 +959,14 @@ def main(argv=None):
             breakdown["process"] = {"python_empty_s": py_s, "import_harmtrack_s": imp_s,
                                     "import_batch_and_numpy_s": p_import, "first_track_s": p_first,
                                     "second_track_s": p_second, "batch_1_file_1s_wall_s": one_s}
-            print(f"  a fresh process: `python -c pass` {py_s:.3f} s, `python -c 'import harmtrack'` "
-                  f"{imp_s:.3f} s (wall);\n    inside it: numpy + harmtrack.batch imports {p_import:.3f} s, "
-                  f"first track call {p_first:.3f} s, second {p_second:.3f} s\n    -> numba cache load "
-                  f"and first-call set-up ~{p_first - p_second:.2f} s, paid once by every fresh worker")
-            print(f"  `harmtrack batch` of a single 1 s file (1 worker, in-process): {one_s:.2f} s wall "
-                  "= the fixed cost of a run")
+            print(f"  a fresh process: `python -c pass` {py_s:.3f} s, "
+                  f"`python -c 'import harmtrack'` {imp_s:.3f} s (wall);\n"
+                  f"    inside it: numpy + harmtrack.batch imports {p_import:.3f} s, "
+                  f"first track call {p_first:.3f} s, second {p_second:.3f} s\n"
+                  f"    -> numba cache load and first-call set-up ~{p_first - p_second:.2f} s, "
+                  "paid once by every fresh worker")
+            print("  `harmtrack batch` of a single 1 s file (1 worker, in-process): "
+                  f"{one_s:.2f} s wall = the fixed cost of a run")
 
             # analysis alone vs the worker's whole per-file job
             for key, cfg_key in (("long", "local1"), ("short", "short2")):
@@ -877,8 +977,9 @@ def main(argv=None):
                 job = summary[cfg_key]["file_s_median"]
                 breakdown[f"per_file_{key}"] = {"track_file_s": ana, "batch_file_s": job,
                                                 "batch_config": cfg_key}
-                print(f"  per file, {d:g} s files: harmtrack.track_file {ana * 1e3:.1f} ms here; the "
-                      f"batch's per-file seconds ({summary[cfg_key]['label']}) {job * 1e3:.1f} ms\n"
+                print(f"  per file, {d:g} s files: harmtrack.track_file {ana * 1e3:.1f} ms here; "
+                      f"the batch's per-file seconds ({summary[cfg_key]['label']}) "
+                      f"{job * 1e3:.1f} ms\n"
                       f"    = {ana / d * 1e3:.2f} vs {job / d * 1e3:.2f} ms per audio second")
 
             # dataset assembly: the same runs with --no-dataset (public option)
@@ -902,9 +1003,9 @@ def main(argv=None):
                       f"{summary[key]['wall_s'] - w:.2f} s")
 
             # per run: the files' own seconds against the wall clock, CPU by process
-            print("  per configuration (medians): wall = start-up and input scan (wall - CLI clock) "
-                  "+ CLI clock;\n  'in files' = sum of per-file seconds / workers; CPU s of the "
-                  "main process and of each worker")
+            print("  per configuration (medians): wall = start-up and input scan "
+                  "(wall - CLI clock) + CLI clock;\n  'in files' = sum of per-file seconds / "
+                  "workers; CPU s of the main process and of each worker")
             for key, s in summary.items():
                 files_per_worker = s["file_s_sum"] / s["workers"]
                 breakdown[f"overhead_{key}"] = {
@@ -912,11 +1013,44 @@ def main(argv=None):
                     "in_files_per_worker_s": files_per_worker,
                     "outside_files_s": s["wall_s"] - files_per_worker,
                     "main_cpu_s": s["main_cpu_s"], "worker_cpu_s": s["worker_cpu_s"]}
-                print(f"    {s['label']:<30s} wall {s['wall_s']:6.2f} = {s['wall_s'] - s['cli_seconds']:4.2f}"
-                      f" + {s['cli_seconds']:6.2f}; in files {files_per_worker:6.2f}; outside "
-                      f"{s['wall_s'] - files_per_worker:5.2f}; CPU main {s['main_cpu_s']:5.2f}, workers "
-                      f"{'/'.join(f'{v:.2f}' for v in s['worker_cpu_s']) or '-'}; slowest file "
-                      f"{s['file_s_max']:.2f} s")
+                wk_cpu = "/".join(f"{v:.2f}" for v in s["worker_cpu_s"]) or "-"
+                print(f"    {s['label']:<30s} wall {s['wall_s']:6.2f} = "
+                      f"{s['wall_s'] - s['cli_seconds']:4.2f} + {s['cli_seconds']:6.2f}; "
+                      f"in files {files_per_worker:6.2f}; outside "
+                      f"{s['wall_s'] - files_per_worker:5.2f}; CPU main {s['main_cpu_s']:5.2f}, "
+                      f"workers {wk_cpu}; slowest file {s['file_s_max']:.2f} s")
+                if s["scheduler_cpu_s"] is not None:
+                    print(f"    {'':<30s} Dask scheduler CPU {s['scheduler_cpu_s']:.2f} s, nannies "
+                          f"{'/'.join(f'{v:.2f}' for v in s['nanny_cpu_s'])} s")
+
+            # the timeline of a run, from the output files' modification times
+            print("  timeline (medians, s after the batch process started): first label file "
+                  "written, last one,\n  dataset and summary written, process exit")
+            for key, s in summary.items():
+                tl = s["timeline"]
+                breakdown[f"timeline_{key}"] = tl
+                if "first_label_s" not in tl:
+                    continue
+                nan = float("nan")
+                print(f"    {s['label']:<30s} first {tl['first_label_s']:5.2f}  last "
+                      f"{tl['last_label_s']:5.2f}  dataset {tl.get('dataset_s', nan):5.2f}  "
+                      f"summary {tl.get('summary_s', nan):5.2f}  exit {tl['exit_s']:5.2f}   -> "
+                      f"before the first label {tl['first_label_s']:.2f}, after the last "
+                      f"{tl['exit_s'] - tl['last_label_s']:.2f}")
+
+            if "dask2" in summary:
+                # dask's nanny starts its workers with MALLOC_TRIM_THRESHOLD_ set
+                # (dask config distributed.nanny.pre-spawn-environ)
+                env_set = _dask_prespawn_environ()
+                if env_set:
+                    plain, with_env = malloc_probe(corpora["long"]["folder"], env_set, work)
+                    breakdown["dask_prespawn_environ"] = {"environ": env_set,
+                                                          "track_file_s": plain,
+                                                          "track_file_with_environ_s": with_env}
+                    print(f"  Dask's nanny starts workers with {env_set}; "
+                          f"harmtrack.track_file on 10 s files in a fresh process: "
+                          f"{plain * 1e3:.1f} ms without, {with_env * 1e3:.1f} ms with "
+                          f"({100 * (with_env / plain - 1):+.0f} %)")
 
         # --- floors ------------------------------------------------------------------------
         floors = []
@@ -929,7 +1063,8 @@ def main(argv=None):
               f"{t2 / t1:.2f} x ({t2:.0f} vs {t1:.0f} audio h/h)")
         ts = summary["short2"]["throughput"]
         floor(f"1 s files >= {SHORT_FILE_FLOOR * 100:g} % of 10 s files (2 workers)",
-              ts >= SHORT_FILE_FLOOR * t2, f"{100 * ts / t2:.0f} % ({ts:.0f} vs {t2:.0f} audio h/h)")
+              ts >= SHORT_FILE_FLOOR * t2,
+              f"{100 * ts / t2:.0f} % ({ts:.0f} vs {t2:.0f} audio h/h)")
         busy_runs = sum(r["other_cores"] > OTHER_LOAD_WARN for rs in runs.values() for r in rs)
         print("\nfloors" + (f"  (note: {busy_runs} run(s) shared the machine with other load)"
                             if busy_runs else ""))
@@ -940,12 +1075,13 @@ def main(argv=None):
         if args.json:
             doc = {
                 "settings": {"sr": SR, "preset": PRESET, "formats": FORMATS, "repeats": repeats,
-                             "quick": args.quick, "corpora": {k: {kk: str(vv) if kk == "folder" else vv
-                                                                  for kk, vv in v.items()}
-                                                              for k, v in corpora.items()},
-                             "corpus_recipe": {k: corpus_recipe(v["files"], v["duration_s"],
-                                                                SEED_LONG if k == "long" else SEED_SHORT)
-                                               for k, v in corpora.items()},
+                             "quick": args.quick,
+                             "corpora": {k: dict(v, folder=str(v["folder"]))
+                                         for k, v in corpora.items()},
+                             "corpus_recipe": {
+                                 k: corpus_recipe(v["files"], v["duration_s"],
+                                                  SEED_LONG if k == "long" else SEED_SHORT)
+                                 for k, v in corpora.items()},
                              "floors": {"scaling": SCALING_FLOOR, "short_files": SHORT_FILE_FLOOR}},
                 "environment": {"harmtrack": harmtrack.__version__, "numpy": np.__version__,
                                 "distributed": dask_version, "python": platform.python_version(),

@@ -1,8 +1,6 @@
-"""``python -m harmtrack``: the same as the ``harmtrack`` command."""
+"""``python -m harmtrack``: the command line (see :mod:`harmtrack.cli`)."""
 
-import sys
-
-from harmtrack.cli import main
+from .cli import console
 
 if __name__ == "__main__":
-    sys.exit(main())
+    console()

@@ -27,7 +27,7 @@ from ._version import __version__
 from .batch_inputs import find_inputs, safe_output_base
 from .errors import HarmtrackError
 
-__all__ = ["Task", "plan_batch", "label_one", "run_batch", "BatchReport", "LABEL_FORMATS",
+__all__ = ["Task", "plan_batch", "label_one", "label_chunk", "run_batch", "BatchReport", "LABEL_FORMATS",
            "DATASET_NAME", "SUMMARY_NAME"]
 
 #: Label formats a batch can write per file.
@@ -238,10 +238,41 @@ def _warm_up() -> None:
         pass
 
 
-def _run_local(tasks, workers, on_done):
-    if workers <= 1 or len(tasks) <= 1:
-        for t in tasks:
-            on_done(label_one(t))
+def label_chunk(tasks: list) -> list:
+    """:func:`label_one` for each task of a chunk (one round trip to a worker)."""
+    return [label_one(t) for t in tasks]
+
+
+#: Audio per chunk sent to a worker, seconds: short files travel in groups, so the
+#: cost of a round trip to a worker process is shared by several files.
+CHUNK_AUDIO_S = 20.0
+
+
+def _chunks(tasks: list, durations: np.ndarray, workers: int) -> list:
+    """Consecutive groups of tasks of about :data:`CHUNK_AUDIO_S` of audio each.
+
+    A chunk never holds more than an eighth of a worker's share of the batch, so
+    the work stays spread evenly to the end.
+    """
+    total = float(durations.sum())
+    target = max(1e-9, min(CHUNK_AUDIO_S, total / max(1, 8 * workers)))
+    out, cur, acc = [], [], 0.0
+    for t, d in zip(tasks, durations):
+        cur.append(t)
+        acc += max(float(d), 0.05)  # unreadable files still cost a little
+        if acc >= target:
+            out.append(cur)
+            cur, acc = [], 0.0
+    if cur:
+        out.append(cur)
+    return out
+
+
+def _run_local(chunks, workers, on_done):
+    if workers <= 1 or len(chunks) <= 1:
+        for chunk in chunks:
+            for rec in label_chunk(chunk):
+                on_done(rec)
         return
     import multiprocessing
     from concurrent.futures import ProcessPoolExecutor, as_completed
@@ -256,12 +287,13 @@ def _run_local(tasks, workers, on_done):
     else:  # pragma: no cover - platforms without fork
         ctx = multiprocessing.get_context("spawn")
     with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
-        futures = [pool.submit(label_one, t) for t in tasks]
+        futures = [pool.submit(label_chunk, chunk) for chunk in chunks]
         for fut in as_completed(futures):
-            on_done(fut.result())
+            for rec in fut.result():
+                on_done(rec)
 
 
-def _run_dask(tasks, scheduler, workers, on_done):
+def _run_dask(chunks, scheduler, workers, on_done):
     try:
         from distributed import Client, LocalCluster, as_completed
     except ImportError:
@@ -283,9 +315,10 @@ def _run_dask(tasks, scheduler, workers, on_done):
             cluster.close()
         raise HarmtrackError(f"cannot reach the Dask scheduler {scheduler}: {exc}") from None
     try:
-        futures = client.map(label_one, tasks, pure=False)
+        futures = client.map(label_chunk, chunks, pure=False)
         for fut in as_completed(futures):
-            on_done(fut.result())
+            for rec in fut.result():
+                on_done(rec)
     finally:
         client.close()
         if cluster is not None:
@@ -349,10 +382,11 @@ def run_batch(tasks: list[Task], outdir, *, workers: int | None = None,
                      time.perf_counter() - start)
 
     try:
+        chunks = _chunks(tasks, durations, workers)
         if scheduler is None:
-            _run_local(tasks, workers, on_done)
+            _run_local(chunks, workers, on_done)
         else:
-            _run_dask(tasks, scheduler, workers, on_done)
+            _run_dask(chunks, scheduler, workers, on_done)
         ds_path = writer.close() if writer is not None else None
     except BaseException:
         if writer is not None:

@@ -21,7 +21,7 @@ from pathlib import Path
 
 from ._version import __version__
 
-__all__ = ["main", "build_parser"]
+__all__ = ["main", "console", "build_parser"]
 
 PROG = "harmtrack"
 EXIT_OK = 0
@@ -518,3 +518,20 @@ def main(argv: list[str] | None = None) -> int:
             print(f"{PROG}: internal error: {type(exc).__name__}: {_first_line(exc)} "
                   "(rerun with --debug for the traceback)", file=sys.stderr)
             return EXIT_INTERNAL
+
+
+def console() -> None:
+    """Entry point of the installed ``harmtrack`` command and of ``python -m harmtrack``.
+
+    Runs :func:`main`, flushes the output streams and ends the process at once:
+    every file has been written and closed by then, and skipping the
+    interpreter's teardown of the compiled kernels saves about 0.2 s per run.
+    """
+    code = main()
+    for stream in (sys.stdout, sys.stderr):
+        try:
+            stream.flush()
+        except (OSError, ValueError):
+            pass
+    os._exit(code)
+
