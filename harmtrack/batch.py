@@ -138,7 +138,7 @@ def label_one(task: Task) -> dict:
     """
     from . import api
     from .audio import file_sha256
-    from .io import atomic_write_bytes, decode_labels, encode_labels, make_provenance
+    from .io import atomic_write_bytes, decode_labels, encode_table, make_provenance
     from .io.columns import track_table
 
     start = time.perf_counter()
@@ -156,14 +156,14 @@ def label_one(task: Task) -> dict:
         info["path"] = task.name  # portable: the name inside the dataset, not this disk's path
         prov = {"input": info, "batch": {"key": key, "name": task.name}}
         paths[0].parent.mkdir(parents=True, exist_ok=True)
+        table, record = track_table(tr), make_provenance(tr, extra=prov)
         for i, (p, fmt) in enumerate(zip(paths, task.formats)):
-            data = encode_labels(tr, fmt=fmt, provenance=prov)
+            data = encode_table(table, record, fmt=fmt)
             # no disk syncs: a file cut short by a power failure fails the next
             # run's resume check (every label file is read back) and is redone
             atomic_write_bytes(p, data, durable=False)
             if i == 0:  # what the dataset takes, exactly as a later run would read it
-                rec["labels"] = ((track_table(tr), make_provenance(tr, extra=prov))
-                                 if fmt == "npz"  # NPZ holds the values exactly
+                rec["labels"] = ((table, record) if fmt == "npz"  # NPZ holds values exactly
                                  else decode_labels(data, fmt=fmt, name=os.fspath(p)))
         rec["status"] = "ok"
     except (HarmtrackError, OSError, MemoryError) as exc:
@@ -203,16 +203,13 @@ class BatchReport:
         return self.counts["failed"]
 
 
-def _durations(tasks: list[Task]) -> np.ndarray:
-    """Durations in seconds from the file headers (0 where unreadable)."""
-    import soundfile as sf
-
+def _sizes(tasks: list[Task]) -> np.ndarray:
+    """File sizes in bytes (0 where unreadable): the work estimate for chunks and ETA."""
     out = np.zeros(len(tasks))
     for i, t in enumerate(tasks):
         try:
-            info = sf.info(t.path)
-            out[i] = info.frames / info.samplerate if info.samplerate else 0.0
-        except Exception:  # noqa: BLE001 - unreadable files fail later, with their error
+            out[i] = os.stat(t.path).st_size
+        except OSError:
             out[i] = 0.0
     return out
 
@@ -229,11 +226,14 @@ def _clean_stale_temporaries(outdir: Path) -> None:
 
 
 def _warm_up() -> None:
-    """Load the tracker's compiled kernels in this process (a short silent signal)."""
+    """Load the tracker's compiled kernels in this process (a short harmonic tone,
+    so that the search, the smoother and the fit all run)."""
     from . import api
 
+    t = np.arange(4800) / 16000.0
+    tone = sum(np.sin(2 * np.pi * 150.0 * k * t) / k for k in range(1, 6))
     try:
-        api.track(np.random.default_rng(0).standard_normal(4000) * 1e-3, 16000.0)
+        api.track(0.1 * tone, 16000.0)
     except HarmtrackError:  # pragma: no cover - nothing to warm
         pass
 
@@ -247,19 +247,24 @@ def label_chunk(tasks: list) -> list:
 #: cost of a round trip to a worker process is shared by several files.
 CHUNK_AUDIO_S = 20.0
 
+#: Bytes of a file per second of audio assumed for chunking: 16-bit mono at
+#: 16 kHz (compressed or multichannel files only shift the chunk sizes).
+CHUNK_BYTES_PER_S = 32000.0
 
-def _chunks(tasks: list, durations: np.ndarray, workers: int) -> list:
+
+def _chunks(tasks: list, sizes: np.ndarray, workers: int) -> list:
     """Consecutive groups of tasks of about :data:`CHUNK_AUDIO_S` of audio each.
 
+    The audio is judged by file size (:data:`CHUNK_BYTES_PER_S` bytes a second).
     A chunk never holds more than an eighth of a worker's share of the batch, so
     the work stays spread evenly to the end.
     """
-    total = float(durations.sum())
-    target = max(1e-9, min(CHUNK_AUDIO_S, total / max(1, 8 * workers)))
+    total = float(sizes.sum())
+    target = max(1.0, min(CHUNK_AUDIO_S * CHUNK_BYTES_PER_S, total / max(1, 8 * workers)))
     out, cur, acc = [], [], 0.0
-    for t, d in zip(tasks, durations):
+    for t, b in zip(tasks, sizes):
         cur.append(t)
-        acc += max(float(d), 0.05)  # unreadable files still cost a little
+        acc += max(float(b), 4096.0)  # unreadable or empty files still cost a little
         if acc >= target:
             out.append(cur)
             cur, acc = [], 0.0
@@ -269,28 +274,45 @@ def _chunks(tasks: list, durations: np.ndarray, workers: int) -> list:
 
 
 def _run_local(chunks, workers, on_done):
+    """Label the chunks here and in ``workers - 1`` forked helper processes.
+
+    This process is one of the workers: between its own chunks it collects the
+    helpers' results (a chunk takes a fraction of a second), so no core waits
+    on a coordinator.
+    """
     if workers <= 1 or len(chunks) <= 1:
         for chunk in chunks:
             for rec in label_chunk(chunk):
                 on_done(rec)
         return
     import multiprocessing
-    from concurrent.futures import ProcessPoolExecutor, as_completed
+    from collections import deque
+    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
 
-    # Forked workers inherit the loaded modules and compiled kernels of this
-    # process (warmed up first), which saves each worker about a second of
-    # start-up; where fork is missing, workers start afresh.
-    methods = multiprocessing.get_all_start_methods()
-    if "fork" in methods:
+    # Forked helpers inherit the loaded modules and compiled kernels of this
+    # process (warmed up first), which saves each about half a second of
+    # start-up; where fork is missing, helpers start afresh.
+    if "fork" in multiprocessing.get_all_start_methods():
         _warm_up()
         ctx = multiprocessing.get_context("fork")
     else:  # pragma: no cover - platforms without fork
         ctx = multiprocessing.get_context("spawn")
-    with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
-        futures = [pool.submit(label_chunk, chunk) for chunk in chunks]
-        for fut in as_completed(futures):
-            for rec in fut.result():
-                on_done(rec)
+    todo = deque(chunks)
+    inflight: set = set()
+    with ProcessPoolExecutor(max_workers=workers - 1, mp_context=ctx) as pool:
+        while todo or inflight:
+            while todo and len(inflight) < 2 * (workers - 1):
+                inflight.add(pool.submit(label_chunk, todo.popleft()))
+            if todo:
+                for rec in label_chunk(todo.popleft()):
+                    on_done(rec)
+                finished = {f for f in inflight if f.done()}
+            else:
+                finished, _ = wait(inflight, return_when=FIRST_COMPLETED)
+            for fut in finished:
+                inflight.discard(fut)
+                for rec in fut.result():
+                    on_done(rec)
 
 
 def _run_dask(chunks, scheduler, workers, on_done):
@@ -345,8 +367,8 @@ def run_batch(tasks: list[Task], outdir, *, workers: int | None = None,
     dataset : bool
         Also write :data:`DATASET_NAME` (needs pyarrow).
     progress : callable, optional
-        Called as ``progress(done, total, audio_done_s, audio_total_s, elapsed_s)``
-        after each file.
+        Called as ``progress(done, total, audio_done_s, work_fraction, elapsed_s)``
+        after each file; ``work_fraction`` is the share of the input bytes done.
     """
     from .batch_output import DatasetWriter, file_stats, labels_of, write_summary
 
@@ -354,10 +376,10 @@ def run_batch(tasks: list[Task], outdir, *, workers: int | None = None,
     outdir.mkdir(parents=True, exist_ok=True)
     _clean_stale_temporaries(outdir)
     workers = int(workers or os.cpu_count() or 1)
-    durations = _durations(tasks)
+    sizes = _sizes(tasks)
     records: list = [None] * len(tasks)
     start = time.perf_counter()
-    state = {"done": 0, "audio": 0.0, "next": 0}
+    state = {"done": 0, "bytes": 0.0, "audio": 0.0, "next": 0}
     writer = DatasetWriter(outdir / DATASET_NAME) if dataset else None
 
     def finish_in_order():
@@ -367,6 +389,7 @@ def run_batch(tasks: list[Task], outdir, *, workers: int | None = None,
             labels = labels_of(tasks[i], records[i])
             if labels is not None:
                 records[i]["stats"] = file_stats(*labels)
+                state["audio"] += records[i]["stats"]["duration_s"] or 0.0
                 if writer is not None:
                     writer.add(tasks[i], *labels)
             state["next"] += 1
@@ -375,14 +398,14 @@ def run_batch(tasks: list[Task], outdir, *, workers: int | None = None,
         i = rec["file_id"]
         records[i] = rec
         state["done"] += 1
-        state["audio"] += durations[i]
+        state["bytes"] += sizes[i]
         finish_in_order()
         if progress is not None:
-            progress(state["done"], len(tasks), state["audio"], float(durations.sum()),
-                     time.perf_counter() - start)
+            progress(state["done"], len(tasks), state["audio"],
+                     state["bytes"] / max(1.0, float(sizes.sum())), time.perf_counter() - start)
 
     try:
-        chunks = _chunks(tasks, durations, workers)
+        chunks = _chunks(tasks, sizes, workers)
         if scheduler is None:
             _run_local(chunks, workers, on_done)
         else:
@@ -394,4 +417,4 @@ def run_batch(tasks: list[Task], outdir, *, workers: int | None = None,
         raise
     summary = write_summary(outdir / SUMMARY_NAME, tasks, records)
     return BatchReport(tasks=tasks, records=records, dataset=ds_path, summary=summary,
-                       seconds=time.perf_counter() - start, audio_s=float(durations.sum()))
+                       seconds=time.perf_counter() - start, audio_s=state["audio"])

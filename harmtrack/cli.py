@@ -301,18 +301,17 @@ def _progress_printer(stream):
     tty = stream.isatty()
     last = {"t": -1.0}
 
-    def show(done, total, audio_done, audio_total, elapsed):
+    def show(done, total, audio_done, fraction, elapsed):
         if not tty and done < total and elapsed - last["t"] < 10.0:
             return
         last["t"] = elapsed
-        rate = audio_done / elapsed if elapsed > 0 else 0.0
-        eta = (audio_total - audio_done) / rate if rate > 0 else float("nan")
+        eta = elapsed * (1.0 - fraction) / fraction if fraction > 0 else float("nan")
         width = 24
         filled = int(width * done / total) if total else width
         bar = "#" * filled + "-" * (width - filled)
         eta_text = "--:--" if eta != eta else f"{int(eta // 60):02d}:{int(eta % 60):02d}"
-        line = (f"[{bar}] {done}/{total} files, {audio_done / 3600:.3f} of "
-                f"{audio_total / 3600:.3f} h audio, ETA {eta_text}")
+        line = (f"[{bar}] {done}/{total} files, {audio_done / 3600:.3f} h audio done, "
+                f"ETA {eta_text}")
         stream.write(("\r" + line) if tty else (line + "\n"))
         if tty and done == total:
             stream.write("\n")

@@ -10,6 +10,7 @@ band) happen in :meth:`TrackerConfig.resolve`, once the input's rate is known.
 from __future__ import annotations
 
 import dataclasses
+import functools
 import math
 from dataclasses import dataclass
 
@@ -245,6 +246,7 @@ class ResolvedConfig:
         return _fast_length(2 * self.frame_len)
 
 
+@functools.lru_cache(maxsize=256)
 def _fast_length(n: int) -> int:
     """Smallest integer >= n whose only prime factors are 2, 3 and 5."""
     best = 1 << int(math.ceil(math.log2(n)))

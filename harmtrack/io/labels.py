@@ -87,6 +87,11 @@ def resolve_format(path: str | os.PathLike, fmt: str | None = None) -> str:
     return ext[1:]
 
 
+def encode_table(table: dict, provenance: dict, *, fmt: str) -> bytes:
+    """The bytes of a label file from a checked table and a complete provenance record."""
+    return _CODECS[resolve_format("<labels>", fmt)][0](table, provenance)
+
+
 def encode_labels(track, *, fmt: str = "csv", provenance: dict | None = None) -> bytes:
     """The bytes of a label file for ``track`` (what :func:`write_labels` writes).
 

@@ -39,9 +39,14 @@ def _npy_bytes(arr: np.ndarray) -> bytes:
     return buf.getvalue()
 
 
-def _member(name: str) -> zipfile.ZipInfo:
+#: Members smaller than this are stored, not compressed: deflating a few hundred
+#: bytes saves little and costs a compressor set-up each.
+_STORE_BELOW = 4096
+
+
+def _member(name: str, size: int) -> zipfile.ZipInfo:
     info = zipfile.ZipInfo(name + ".npy", date_time=_DATE_TIME)
-    info.compress_type = zipfile.ZIP_DEFLATED
+    info.compress_type = zipfile.ZIP_STORED if size < _STORE_BELOW else zipfile.ZIP_DEFLATED
     info.create_system = 3
     info.external_attr = (0o100000 | _MEMBER_MODE) << 16
     return info
@@ -66,7 +71,8 @@ def encode(table: dict, provenance: dict) -> bytes:
     buf = io.BytesIO()
     with zipfile.ZipFile(buf, "w", allowZip64=True) as zf:
         for name, arr in arrays.items():
-            zf.writestr(_member(name), _npy_bytes(arr), compresslevel=_COMPRESS_LEVEL)
+            data = _npy_bytes(arr)
+            zf.writestr(_member(name, len(data)), data, compresslevel=_COMPRESS_LEVEL)
     return buf.getvalue()
 
 
