@@ -3,14 +3,16 @@
 from __future__ import annotations
 
 import hashlib
+import io
 import os
+import re
 from dataclasses import dataclass
 
 import numpy as np
 
 from .errors import InputError, warn
 
-__all__ = ["AudioInfo", "load", "as_mono", "check_signal", "resample", "file_sha256"]
+__all__ = ["AudioInfo", "load", "decode", "as_mono", "check_signal", "resample", "file_sha256"]
 
 
 @dataclass(frozen=True)
@@ -58,17 +60,33 @@ def load(path: str | os.PathLike) -> tuple[np.ndarray, float, AudioInfo]:
     InputError
         Missing, unreadable, truncated or empty file, or non-finite samples.
     """
-    import soundfile as sf
-
     path = os.fspath(path)
     if not os.path.exists(path):
         raise InputError(f"{path}: no such file")
     if os.path.isdir(path):
         raise InputError(f"{path}: is a folder, not an audio file")
-    if not os.access(path, os.R_OK):
-        raise InputError(f"{path}: permission denied")
     try:
-        with sf.SoundFile(path) as f:
+        with open(path, "rb") as fh:
+            raw = fh.read()
+    except PermissionError:
+        raise InputError(f"{path}: permission denied") from None
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read: {exc.strerror or exc}") from None
+    return decode(raw, name=path)
+
+
+def decode(raw: bytes, *, name: str, sha256: str | None = None
+           ) -> tuple[np.ndarray, float, AudioInfo]:
+    """:func:`load` for the bytes ``raw`` of an audio file called ``name``.
+
+    ``sha256`` is the bytes' SHA-256 when the caller has it already.
+    """
+    import soundfile as sf
+
+    if not raw:
+        raise InputError(f"{name}: empty file (0 bytes)")
+    try:
+        with sf.SoundFile(io.BytesIO(raw)) as f:
             sr = float(f.samplerate)
             declared = f.frames
             channels = f.channels
@@ -76,47 +94,47 @@ def load(path: str | os.PathLike) -> tuple[np.ndarray, float, AudioInfo]:
             data = f.read(dtype="float64", always_2d=True)
     except (sf.LibsndfileError, RuntimeError, TypeError, ValueError) as exc:
         reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        raise InputError(f"{path}: not a readable audio file ({reason})") from None
+        raise InputError(f"{name}: not a readable audio file ({_plain(reason)})") from None
     if data.shape[0] < declared:
         raise InputError(
-            f"{path}: truncated audio file ({data.shape[0]} of {declared} declared samples readable)"
+            f"{name}: truncated audio file ({data.shape[0]} of {declared} declared samples readable)"
         )
     if fmt == "WAV" and subtype.startswith("PCM"):
-        _check_wav_size(path, declared, channels, subtype)
+        _check_wav_size(name, raw, declared, channels, subtype)
     if data.shape[0] == 0:
-        raise InputError(f"{path}: contains no audio samples")
-    info = AudioInfo(path=path, sr=sr, channels=channels, frames=int(data.shape[0]),
-                     format=fmt, subtype=subtype, sha256=file_sha256(path))
-    y = as_mono(data.T, name=path)
-    check_signal(y, sr, name=path)
+        raise InputError(f"{name}: contains no audio samples")
+    digest = sha256 or hashlib.sha256(raw).hexdigest()
+    info = AudioInfo(path=name, sr=sr, channels=channels, frames=int(data.shape[0]),
+                     format=fmt, subtype=subtype, sha256=digest)
+    y = as_mono(data.T, name=name)
+    check_signal(y, sr, name=name)
     return y, sr, info
 
 
-def _check_wav_size(path: str, declared: int, channels: int, subtype: str) -> None:
+def _plain(reason: str) -> str:
+    """A soundfile error message without the memory address of the buffer it read."""
+    return re.sub(r"<_io\.BytesIO object at 0x[0-9a-f]+>", "the file", reason)
+
+
+def _check_wav_size(name: str, raw: bytes, declared: int, channels: int, subtype: str) -> None:
     """Detect a WAV whose data chunk is shorter than its header says."""
     width = {"PCM_U8": 1, "PCM_S8": 1, "PCM_16": 2, "PCM_24": 3, "PCM_32": 4}.get(subtype)
-    if width is None:
+    if width is None or raw[:4] != b"RIFF" or raw[8:12] != b"WAVE":
         return
-    with open(path, "rb") as f:
-        head = f.read(12)
-        if head[:4] != b"RIFF" or head[8:12] != b"WAVE":
+    size = len(raw)
+    pos = 12
+    while pos + 8 <= size:
+        cid, clen = raw[pos:pos + 4], int.from_bytes(raw[pos + 4:pos + 8], "little")
+        if cid == b"data":
+            avail = size - (pos + 8)
+            if clen != 0xFFFFFFFF and avail < clen:
+                have = avail // (width * channels)
+                raise InputError(
+                    f"{name}: truncated audio file (data chunk holds {have} of "
+                    f"{clen // (width * channels)} declared samples)"
+                )
             return
-        size = os.path.getsize(path)
-        pos = 12
-        while pos + 8 <= size:
-            f.seek(pos)
-            hdr = f.read(8)
-            cid, clen = hdr[:4], int.from_bytes(hdr[4:8], "little")
-            if cid == b"data":
-                avail = size - (pos + 8)
-                if clen != 0xFFFFFFFF and avail < clen:
-                    have = avail // (width * channels)
-                    raise InputError(
-                        f"{path}: truncated audio file (data chunk holds {have} of "
-                        f"{clen // (width * channels)} declared samples)"
-                    )
-                return
-            pos += 8 + clen + (clen & 1)
+        pos += 8 + clen + (clen & 1)
 
 
 def as_mono(y, *, name: str = "<array>") -> np.ndarray:

@@ -136,23 +136,33 @@ def label_one(task: Task) -> dict:
     of its first label file, decoded from the written bytes, so that the main
     process need not read the file back.
     """
-    from . import api
-    from .audio import file_sha256
+    from .audio import decode
+    from .config import make_config
     from .io import atomic_write_bytes, decode_labels, encode_table, make_provenance
     from .io.columns import track_table
+    from .tracker import run
 
     start = time.perf_counter()
     rec = {"file_id": task.file_id, "name": task.name, "status": "failed", "error": ""}
     try:
-        digest = file_sha256(task.path)
+        try:
+            with open(task.path, "rb") as fh:
+                raw = fh.read()
+        except OSError as exc:
+            raise HarmtrackError(f"{task.path}: cannot read: {exc.strerror or exc}") from None
+        digest = hashlib.sha256(raw).hexdigest()
         key = batch_key(task, digest)
         paths = _label_paths(task)
         if _existing_key(paths) == key:
             rec["status"] = "skipped"
             return rec
         opts = dict(task.options)
-        tr = api.track_file(task.path, **opts)
-        info = dict(tr.settings.get("input") or {})
+        preset = opts.pop("preset", "voice")
+        cfg = make_config(preset, **{_CONFIG_NAMES.get(k, k): v for k, v in opts.items()})
+        y, sr, info = decode(raw, name=task.path, sha256=digest)
+        del raw
+        tr = run(y, sr, cfg, name=task.path)
+        info = info.as_dict()
         info["path"] = task.name  # portable: the name inside the dataset, not this disk's path
         prov = {"input": info, "batch": {"key": key, "name": task.name}}
         paths[0].parent.mkdir(parents=True, exist_ok=True)

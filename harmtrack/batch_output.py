@@ -70,7 +70,7 @@ def file_stats(cols: dict, prov: dict) -> dict:
 
 #: Rows gathered before a row group is written: few, large row groups read fast
 #: and cost the writing process little per file.
-ROW_GROUP_ROWS = 262144
+ROW_GROUP_ROWS = 65536
 
 
 def _arrow_columns(cols: dict) -> dict:
