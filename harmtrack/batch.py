@@ -255,7 +255,7 @@ def label_chunk(tasks: list) -> list:
 
 #: Audio per chunk sent to a worker, seconds: short files travel in groups, so the
 #: cost of a round trip to a worker process is shared by several files.
-CHUNK_AUDIO_S = 20.0
+CHUNK_AUDIO_S = 8.0
 
 #: Bytes of a file per second of audio assumed for chunking: 16-bit mono at
 #: 16 kHz (compressed or multichannel files only shift the chunk sizes).
