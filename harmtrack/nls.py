@@ -50,6 +50,13 @@ import math
 import numpy as np
 from numba import njit
 
+#: Floating-point licences of the hot kernels: no NaN or infinity, no signed
+#: zero (so min/max vectorise), but no reassociation, no fused multiply-add and
+#: no approximate division: those would let results depend on how a kernel was
+#: inlined into its caller, so two processes (or a fresh compilation and a
+#: cached one) could disagree in the last bit and, rarely, in a decision.
+_FASTMATH = {"nnan", "ninf", "nsz"}
+
 #: Smallest model order used while refining f0 (fewer where the band holds fewer
 #: harmonics).  Harmonics too weak to pass the order test one by one still carry
 #: information about f0 together; a harmonic that is absent costs a little
@@ -66,7 +73,7 @@ __all__ = ["projections", "refine_f0", "select_order", "analyse_frame",
            "analyse_frames", "crlb_f0"]
 
 
-@njit(cache=True, fastmath=True)
+@njit(cache=True, fastmath=_FASTMATH)
 def _centred_dtft(x, omegas, orders, re_out, im_out):
     """``sum_n x[n] exp(-i k w_m t_n)`` for ``k = 1..orders[m]`` of every ``w_m``.
 
@@ -238,7 +245,7 @@ def _nested_energies(c, s, omega, N, L, energies):
     return _nested_fit(c, s, omega, N, L, energies, C, S, u, v)
 
 
-@njit(cache=True, fastmath=True)
+@njit(cache=True, fastmath=_FASTMATH)
 def _chol_row(A, i):
     """Row ``i`` of the lower Cholesky factor, in place (rows above already done).
 
@@ -332,7 +339,7 @@ def refine_f0(x, omega0, L, rel_step):
     return w
 
 
-@njit(cache=True, fastmath=True)
+@njit(cache=True, fastmath=_FASTMATH)
 def _near_orthogonal_solve(c, s, D, L, ac, bs):
     """Least-squares coefficients when the Gram blocks are nearly diagonal.
 

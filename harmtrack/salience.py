@@ -46,6 +46,13 @@ from typing import NamedTuple
 import numpy as np
 from numba import njit
 
+#: Floating-point licences of the hot kernels: no NaN or infinity, no signed
+#: zero (so min/max vectorise), but no reassociation, no fused multiply-add and
+#: no approximate division: those would let results depend on how a kernel was
+#: inlined into its caller, so two processes (or a fresh compilation and a
+#: cached one) could disagree in the last bit and, rarely, in a decision.
+_FASTMATH = {"nnan", "ninf", "nsz"}
+
 __all__ = ["log_grid", "HarmonicTables", "harmonic_tables", "pick_candidates", "evidence_map"]
 
 
@@ -109,7 +116,7 @@ def harmonic_tables(grid_hz: np.ndarray, *, df: float, band_hz: float,
     return HarmonicTables(sp_idx, sp_w, h_phase, h_shift, gend, lmax)
 
 
-@njit(cache=True, fastmath=True)
+@njit(cache=True, fastmath=_FASTMATH)
 def _log_spectrum(p, sp_idx, sp_w, n_phase, plog, mlog, lin, pooled):
     """Power and magnitude on the fine log axis, split by sub-step: ``plog[phase, m]``.
 
@@ -141,7 +148,7 @@ def _log_spectrum(p, sp_idx, sp_w, n_phase, plog, mlog, lin, pooled):
             mrow[m] = math.sqrt(v)
 
 
-@njit(cache=True, fastmath=True)
+@njit(cache=True, fastmath=_FASTMATH)
 def _frame_costs(p, r_tot, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, G,
                  norm, n_eff, pen_h, floor_rel, mismatch, plog, mlog, lin, pooled):
     """Penalised residual and harmonic magnitude sum of one frame on the whole grid.
