@@ -240,3 +240,16 @@ def test_bad_batch_input(tmp_path):
                      f"tcp://127.0.0.1:{_free_port()}")
     assert res.returncode == 2 and "cannot reach the Dask scheduler" in res.stderr
     assert len(res.stderr.strip().splitlines()) == 1
+
+
+def test_fresh_compilation_gives_the_same_labels(tmp_path, dataset):
+    # A process that compiles the kernels afresh (its own empty cache) must label
+    # exactly as processes that load them from the cache: batches mix both kinds
+    # (a new cluster node, a first run after installing).
+    wav = dataset / "a" / "rec01.wav"
+    cached = tmp_path / "cached.npz"
+    fresh = tmp_path / "fresh.npz"
+    assert _harmtrack("track", wav, "-o", cached, "-q").returncode == 0
+    env = dict(os.environ, NUMBA_CACHE_DIR=str(tmp_path / "empty_cache"))
+    assert _harmtrack("track", wav, "-o", fresh, "-q", env=env).returncode == 0
+    assert fresh.read_bytes() == cached.read_bytes()
