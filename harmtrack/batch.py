@@ -27,8 +27,8 @@ from ._version import __version__
 from .batch_inputs import find_inputs, safe_output_base
 from .errors import HarmtrackError
 
-__all__ = ["Task", "plan_batch", "label_one", "label_chunk", "run_batch", "BatchReport", "LABEL_FORMATS",
-           "DATASET_NAME", "SUMMARY_NAME"]
+__all__ = ["Task", "plan_batch", "label_one", "label_chunk", "run_batch", "BatchReport",
+           "LABEL_FORMATS", "DATASET_NAME", "SUMMARY_NAME"]
 
 #: Label formats a batch can write per file.
 LABEL_FORMATS = ("npz", "csv", "json")
@@ -51,7 +51,11 @@ class Task:
     name: str
     out_base: str
     formats: tuple
-    options: tuple  # sorted (key, value) pairs of harmtrack.track_file options
+    options: tuple  # sorted (key, value) pairs of harmtrack.track_file options, preset included
+
+
+#: Option names of :func:`harmtrack.track_file` that differ from the settings' names.
+_CONFIG_NAMES = {"fmin": "fmin_hz", "fmax": "fmax_hz"}
 
 
 def _options_key(options: dict) -> tuple:
@@ -86,8 +90,6 @@ def plan_batch(source, outdir, *, formats=("npz",), options: dict | None = None)
                  options=_options_key(opts))
             for i, (e, b) in enumerate(zip(entries, bases))]
 
-
-_CONFIG_NAMES = {"fmin": "fmin_hz", "fmax": "fmax_hz"}
 
 
 def _unique_bases(names: list[str]) -> list[str]:
