@@ -93,7 +93,11 @@ def plan_batch(source, outdir, *, formats=("npz",), options: dict | None = None)
 
 
 def _unique_bases(names: list[str]) -> list[str]:
-    """Label names: the input name without its extension, or with it where two would clash."""
+    """Label names: the input name without its extension, or with it where two would clash.
+
+    Each ends in ``.x``, the place holder that :func:`_label_paths` replaces by
+    the label format's extension.
+    """
     stems = [os.path.splitext(n)[0] for n in names]
     count: dict[str, int] = {}
     for s in stems:

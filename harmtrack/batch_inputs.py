@@ -131,11 +131,11 @@ def find_inputs(source: str | os.PathLike) -> list[Entry]:
 
 
 def safe_output_base(outdir: Path, name: str) -> Path:
-    """``outdir / name`` without its extension, checked to lie inside ``outdir``."""
+    """``outdir / name``, checked to lie inside ``outdir``."""
     rel = PurePosixPath(name)
     if rel.is_absolute() or ".." in rel.parts or not rel.parts:
         raise HarmtrackError(f"{name}: not a relative name inside the output folder")
-    base = outdir.joinpath(*rel.parts).with_suffix("")
+    base = outdir.joinpath(*rel.parts)
     if os.path.commonpath([os.path.abspath(base), os.path.abspath(outdir)]) != \
             os.path.abspath(outdir):
         raise HarmtrackError(f"{name}: would be written outside {outdir}")

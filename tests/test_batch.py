@@ -253,3 +253,16 @@ def test_fresh_compilation_gives_the_same_labels(tmp_path, dataset):
     env = dict(os.environ, NUMBA_CACHE_DIR=str(tmp_path / "empty_cache"))
     assert _harmtrack("track", wav, "-o", fresh, "-q", env=env).returncode == 0
     assert fresh.read_bytes() == cached.read_bytes()
+
+
+def test_inputs_with_the_same_stem_keep_their_own_labels(tmp_path):
+    src = tmp_path / "in"
+    src.mkdir()
+    for ext, f0 in ((".wav", 120.0), (".flac", 180.0)):
+        y = synth.harmonic_tone(0.5, SR, f0_hz=f0, amplitudes=[0.3, 0.2], seed=1)
+        synth.write_wav(src / f"take{ext}", y, SR)
+    out = tmp_path / "out"
+    res = _harmtrack("batch", src, "-o", out, "--workers", "1", "-q")
+    assert res.returncode == 0, res.stderr
+    wav, flac = read_labels(out / "take.wav.npz")[0], read_labels(out / "take.flac.npz")[0]
+    assert abs(np.nanmedian(wav["f0_hz"]) - 120.0) < 2 and abs(np.nanmedian(flac["f0_hz"]) - 180.0) < 2
