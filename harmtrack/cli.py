@@ -60,7 +60,8 @@ def _tracker_options() -> argparse.ArgumentParser:
                         "engine (needs --cylinders); default: voice")
     g.add_argument("--fmin", type=float, metavar="HZ", help="lowest f0 searched, Hz")
     g.add_argument("--fmax", type=float, metavar="HZ", help="highest f0 searched, Hz")
-    g.add_argument("--hop", type=float, metavar="S", help="frame hop, seconds (default 0.01)")
+    g.add_argument("--hop", type=float, metavar="S",
+                   help="frame hop, and so the labels' time step, seconds (default 0.01)")
     g.add_argument("--frame", type=float, metavar="S",
                    help="analysis frame length, seconds (default: from fmin)")
     g.add_argument("--max-harmonics", type=int, metavar="N",
