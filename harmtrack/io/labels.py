@@ -5,8 +5,9 @@ by ``fmt=``:
 
 * ``.csv``  comment lines (``# `` + tool and version, ``# provenance: <JSON>``,
   ``# units: ...``), a header row, one row per frame; fixed number formats.
-* ``.npz``  numpy archive: one array per column, ``harmonic_amplitudes`` (T, H)
-  and a ``provenance`` JSON string.
+* ``.npz``  numpy archive: one array per frame column, the matrix
+  ``harmonic_amplitudes`` (T, H) instead of the ``amp_h`` columns, and a
+  ``provenance`` JSON string (see :mod:`harmtrack.io.npz_format`).
 * ``.json`` ``{"provenance": ..., "columns": {name: unit}, "frames": {name: [...]}}``
   with ``null`` for missing values.
 
@@ -23,7 +24,9 @@ Columns
 | `amp_h1` .. `amp_hH` | linear amplitude, full scale = 1 | `%.6g` | peak amplitude of harmonic k (at k * f0_hz) in input units; 0 where absent, nan where unvoiced or above the analysed band |
 
 (The same table, generated from :data:`harmtrack.io.columns.COLUMNS`, is
-returned by :func:`harmtrack.io.columns_markdown`.)
+returned by :func:`harmtrack.io.columns_markdown`.)  Engine tracks add the
+columns of :data:`harmtrack.io.columns.ENGINE_COLUMNS`: ``rpm``, ``uneven_db``,
+``uneven_flag``, and ``order_<q>`` / ``order_<q>_db`` for each engine order.
 
 Provenance
 ----------
