@@ -266,3 +266,26 @@ def test_inputs_with_the_same_stem_keep_their_own_labels(tmp_path):
     assert res.returncode == 0, res.stderr
     wav, flac = read_labels(out / "take.wav.npz")[0], read_labels(out / "take.flac.npz")[0]
     assert abs(np.nanmedian(wav["f0_hz"]) - 120.0) < 2 and abs(np.nanmedian(flac["f0_hz"]) - 180.0) < 2
+
+
+def test_engine_batch_carries_the_engine_columns(tmp_path):
+    from harmtrack import engine_synth as es
+
+    src = tmp_path / "in"
+    src.mkdir()
+    for i, dead in enumerate((None, 1)):
+        t, r = es.rpm_profile(1.5, kind="steady", rpm=1800.0, hop_s=0.01, seed=i)
+        y = es.engine(t, r, SR, cylinders=4, seed=i, weak_cylinder=dead, weak_db=-np.inf,
+                      noise_snr_db=20.0)
+        synth.write_wav(src / f"e{i}.wav", y, SR)
+    out = tmp_path / "out"
+    res = _harmtrack("batch", src, "-o", out, "--preset", "engine", "--cylinders", "4",
+                     "--rpm-min", "800", "--rpm-max", "4000", "--max-order", "4", "-q")
+    assert res.returncode == 0, res.stderr
+    table = pq.read_table(out / batch.DATASET_NAME)
+    assert {"rpm", "uneven_db", "uneven_flag", "order_2", "order_2_db"} <= set(table.column_names)
+    for name, flagged in (("e0.wav", False), ("e1.wav", True)):
+        rows = [i for i, n in enumerate(table.column("name").to_pylist()) if n == name]
+        sub = table.take(pa.array(rows))
+        assert abs(np.nanmedian(sub.column("rpm").to_numpy()) / 1800.0 - 1) < 0.01
+        assert (np.mean(sub.column("uneven_flag").to_numpy()) > 0.9) == flagged
