@@ -102,10 +102,12 @@ class DatasetWriter:
     """
 
     def __init__(self, path: Path):
-        try:
-            import pyarrow.parquet  # noqa: F401
-        except ImportError:
-            raise HarmtrackError("the frame dataset needs pyarrow: pip install pyarrow") from None
+        import importlib.util
+
+        # checked now, imported at the first row group (the import takes a while,
+        # which then overlaps with the workers' labelling)
+        if importlib.util.find_spec("pyarrow") is None:
+            raise HarmtrackError("the frame dataset needs pyarrow: pip install pyarrow")
         self.path = Path(path)
         self._tmp = self.path.with_name(f".{self.path.name}.writing.tmp")
         self._writer = None
