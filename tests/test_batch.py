@@ -289,3 +289,13 @@ def test_engine_batch_carries_the_engine_columns(tmp_path):
         sub = table.take(pa.array(rows))
         assert abs(np.nanmedian(sub.column("rpm").to_numpy()) / 1800.0 - 1) < 0.01
         assert (np.mean(sub.column("uneven_flag").to_numpy()) > 0.9) == flagged
+
+
+def test_local_dask_cluster_gives_the_local_labels(tmp_path, dataset):
+    pytest.importorskip("distributed")
+    local, dask_local = tmp_path / "local", tmp_path / "dask"
+    assert _harmtrack("batch", dataset, "-o", local, "--workers", "1", "-q").returncode == 2
+    res = _harmtrack("batch", dataset, "-o", dask_local, "--scheduler", "local", "--workers", "2",
+                     "-q", cwd=tmp_path)
+    assert res.returncode == 2, res.stderr
+    assert _tree_digest(dask_local) == _tree_digest(local)
