@@ -254,14 +254,37 @@ def _warm_up() -> None:
         pass
 
 
-def label_chunk(tasks: list) -> list:
-    """:func:`label_one` for each task of a chunk (one round trip to a worker)."""
-    return [label_one(t) for t in tasks]
+#: Labels larger than this (bytes of their arrays) travel back from a helper
+#: process as a file name only; the receiver reads them from the label file.
+#: Small ones are sent along: reading a small file costs more than sending it,
+#: while a large one would keep the helper waiting on the pipe.
+SEND_LABELS_BELOW = 65536
+
+
+def label_chunk(tasks: list, keep_labels: bool = True) -> list:
+    """:func:`label_one` for each task of a chunk (one round trip to a worker).
+
+    Without ``keep_labels`` the records of files whose labels exceed
+    :data:`SEND_LABELS_BELOW` bytes travel without them.
+    """
+    recs = [label_one(t) for t in tasks]
+    if not keep_labels:
+        for rec in recs:
+            labels = rec.get("labels")
+            if labels is not None and sum(
+                    getattr(a, "nbytes", 0) for a in labels[0].values()) >= SEND_LABELS_BELOW:
+                rec.pop("labels")
+    return recs
 
 
 #: Audio per chunk sent to a worker, seconds: short files travel in groups, so the
 #: cost of a round trip to a worker process is shared by several files.
 CHUNK_AUDIO_S = 8.0
+
+#: Chunks queued per helper process: enough to keep it busy while this process
+#: labels a chunk of its own; at the end, queued chunks not yet started are taken
+#: back and labelled here.
+HELPER_QUEUE = 4
 
 #: Bytes of a file per second of audio assumed for chunking: 16-bit mono at
 #: 16 kHz (compressed or multichannel files only shift the chunk sizes).
@@ -314,21 +337,32 @@ def _run_local(chunks, workers, on_done):
     else:  # pragma: no cover - platforms without fork
         ctx = multiprocessing.get_context("spawn")
     todo = deque(chunks)
-    inflight: set = set()
+    inflight: dict = {}  # future -> its chunk
     with ProcessPoolExecutor(max_workers=workers - 1, mp_context=ctx) as pool:
         while todo or inflight:
-            while todo and len(inflight) < 2 * (workers - 1):
-                inflight.add(pool.submit(label_chunk, todo.popleft()))
-            if todo:
-                for rec in label_chunk(todo.popleft()):
+            # enough queued that a helper never waits while this process labels
+            while todo and len(inflight) < HELPER_QUEUE * (workers - 1):
+                chunk = todo.popleft()
+                inflight[pool.submit(label_chunk, chunk, False)] = chunk
+            mine = todo.popleft() if todo else _take_back(inflight)
+            if mine is not None:
+                for rec in label_chunk(mine):
                     on_done(rec)
-                finished = {f for f in inflight if f.done()}
+                finished = [f for f in inflight if f.done()]
             else:
-                finished, _ = wait(inflight, return_when=FIRST_COMPLETED)
+                finished, _ = wait(list(inflight), return_when=FIRST_COMPLETED)
             for fut in finished:
-                inflight.discard(fut)
+                inflight.pop(fut)
                 for rec in fut.result():
                     on_done(rec)
+
+
+def _take_back(inflight: dict):
+    """A chunk queued for a helper but not started yet, withdrawn, or None."""
+    for fut in list(inflight):
+        if fut.cancel():
+            return inflight.pop(fut)
+    return None
 
 
 def _run_dask(chunks, scheduler, workers, on_done):
