@@ -254,27 +254,9 @@ def _warm_up() -> None:
         pass
 
 
-#: Labels larger than this (bytes of their arrays) travel back from a helper
-#: process as a file name only; the receiver reads them from the label file.
-#: Small ones are sent along: reading a small file costs more than sending it,
-#: while a large one would keep the helper waiting on the pipe.
-SEND_LABELS_BELOW = 65536
-
-
-def label_chunk(tasks: list, keep_labels: bool = True) -> list:
-    """:func:`label_one` for each task of a chunk (one round trip to a worker).
-
-    Without ``keep_labels`` the records of files whose labels exceed
-    :data:`SEND_LABELS_BELOW` bytes travel without them.
-    """
-    recs = [label_one(t) for t in tasks]
-    if not keep_labels:
-        for rec in recs:
-            labels = rec.get("labels")
-            if labels is not None and sum(
-                    getattr(a, "nbytes", 0) for a in labels[0].values()) >= SEND_LABELS_BELOW:
-                rec.pop("labels")
-    return recs
+def label_chunk(tasks: list) -> list:
+    """:func:`label_one` for each task of a chunk (one round trip to a worker)."""
+    return [label_one(t) for t in tasks]
 
 
 #: Audio per chunk sent to a worker, seconds: short files travel in groups, so the
@@ -343,7 +325,7 @@ def _run_local(chunks, workers, on_done):
             # enough queued that a helper never waits while this process labels
             while todo and len(inflight) < HELPER_QUEUE * (workers - 1):
                 chunk = todo.popleft()
-                inflight[pool.submit(label_chunk, chunk, False)] = chunk
+                inflight[pool.submit(label_chunk, chunk)] = chunk
             mine = todo.popleft() if todo else _take_back(inflight)
             if mine is not None:
                 for rec in label_chunk(mine):

@@ -211,7 +211,7 @@ def jump_free_track(f_hz: np.ndarray, *, max_step_oct: float = 0.1,
     return 2.0 ** (c + np.median(lf[ok] - c[ok]))
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _cubic_at(y, pos, out):
     """``y`` read at fractional sample positions ``pos`` (cubic convolution, a = -0.5)."""
     n = y.shape[0]

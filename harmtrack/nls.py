@@ -73,7 +73,7 @@ __all__ = ["projections", "refine_f0", "select_order", "analyse_frame",
            "analyse_frames", "crlb_f0"]
 
 
-@njit(cache=True, fastmath=_FASTMATH)
+@njit(cache=True, nogil=True, fastmath=_FASTMATH)
 def _centred_dtft(x, omegas, orders, re_out, im_out):
     """``sum_n x[n] exp(-i k w_m t_n)`` for ``k = 1..orders[m]`` of every ``w_m``.
 
@@ -132,7 +132,7 @@ def _centred_dtft(x, omegas, orders, re_out, im_out):
         im_out[j] = re * ph_i[j] + im * ph_r[j]
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def projections(x, omega, L, c, s):
     """``c[k] = sum x cos(k w t)``, ``s[k] = sum x sin(k w t)`` for ``k = 0..L``.
 
@@ -153,7 +153,7 @@ def projections(x, omega, L, c, s):
         s[k + 1] = -im[k]
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _multi_projections(x, omegas, orders, C, S):
     """Projections at several frequencies in one pass: row ``m`` of ``C`` / ``S``
     holds ``k = 0..orders[m]`` at ``omegas[m]``."""
@@ -177,7 +177,7 @@ def _multi_projections(x, omegas, orders, C, S):
             j += 1
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _dirichlet_table(omega, N, J):
     """``D[j] = sum_t cos(j w t)`` over the centred frame, ``j = 0..J``.
 
@@ -202,7 +202,7 @@ def _dirichlet_table(omega, N, J):
     return D
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _gram(omega, N, L, C, S, mask):
     """Cosine (0..L) and sine (1..L) Gram blocks restricted to harmonics with ``mask``.
 
@@ -234,7 +234,7 @@ def _gram(omega, N, L, C, S, mask):
     return ic, nc, isn, ns
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _nested_energies(c, s, omega, N, L, energies):
     """Energy explained by every order ``0..L`` at ``omega``, from the projections
     ``c``, ``s`` (k = 0..L); see :func:`_nested_fit`."""
@@ -245,7 +245,7 @@ def _nested_energies(c, s, omega, N, L, energies):
     return _nested_fit(c, s, omega, N, L, energies, C, S, u, v)
 
 
-@njit(cache=True, fastmath=_FASTMATH)
+@njit(cache=True, nogil=True, fastmath=_FASTMATH)
 def _chol_row(A, i):
     """Row ``i`` of the lower Cholesky factor, in place (rows above already done).
 
@@ -265,7 +265,7 @@ def _chol_row(A, i):
     return True
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _nested_fit(c, s, omega, N, L, energies, C, S, u, v):
     """Nested least squares for the orders ``0..L`` by a row-wise Cholesky factorisation.
 
@@ -301,7 +301,7 @@ def _nested_fit(c, s, omega, N, L, energies, C, S, u, v):
     return L
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def refine_f0(x, omega0, L, rel_step):
     """Maximise the explained energy of order ``L`` near ``omega0``.
 
@@ -339,7 +339,7 @@ def refine_f0(x, omega0, L, rel_step):
     return w
 
 
-@njit(cache=True, fastmath=_FASTMATH)
+@njit(cache=True, nogil=True, fastmath=_FASTMATH)
 def _near_orthogonal_solve(c, s, D, L, ac, bs):
     """Least-squares coefficients when the Gram blocks are nearly diagonal.
 
@@ -374,7 +374,7 @@ def _near_orthogonal_solve(c, s, D, L, ac, bs):
             b0[k] = bs[k]
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def select_order(energies, usable, R, N, pen_h, pen_f, res_floor=0.0):
     """MAP order (0 = noise only) and its cost gain over the noise-only model (nats)."""
     half = 0.5 * N
@@ -396,7 +396,7 @@ def select_order(energies, usable, R, N, pen_h, pen_f, res_floor=0.0):
     return best_l, c0 - best
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _interp_table(table, omega):
     """Linear interpolation of ``table`` sampled uniformly on [0, pi] at ``omega``."""
     pos = omega / math.pi * (table.shape[0] - 1)
@@ -407,7 +407,7 @@ def _interp_table(table, omega):
     return table[i] * (1.0 - a) + table[i + 1] * a
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def analyse_frame(x, xs, ratio, ra, gain, omega0, order0, lmax, lmax_s, pen_h, pen_f, noise_var,
                   out_amps):
     """Refine f0, choose the order and fit amplitudes for one voiced frame.
@@ -519,7 +519,7 @@ def analyse_frame(x, xs, ratio, ra, gain, omega0, order0, lmax, lmax_s, pen_h, p
     return w, lsel, 10.0 * math.log10(harm / resid)
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def analyse_frames(fw, fs, ratio, ra, gain, omega0, order0, band_w, H, pen_h, pen_f, noise_var):
     """:func:`analyse_frame` over a block of frames.
 

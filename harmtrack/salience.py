@@ -116,7 +116,7 @@ def harmonic_tables(grid_hz: np.ndarray, *, df: float, band_hz: float,
     return HarmonicTables(sp_idx, sp_w, h_phase, h_shift, gend, lmax)
 
 
-@njit(cache=True, fastmath=_FASTMATH)
+@njit(cache=True, nogil=True, fastmath=_FASTMATH)
 def _log_spectrum(p, sp_idx, sp_w, n_phase, plog, mlog, lin, pooled):
     """Power and magnitude on the fine log axis, split by sub-step: ``plog[phase, m]``.
 
@@ -148,7 +148,7 @@ def _log_spectrum(p, sp_idx, sp_w, n_phase, plog, mlog, lin, pooled):
             mrow[m] = math.sqrt(v)
 
 
-@njit(cache=True, fastmath=_FASTMATH)
+@njit(cache=True, nogil=True, fastmath=_FASTMATH)
 def _frame_costs(p, r_tot, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, G,
                  norm, n_eff, pen_h, floor_rel, mismatch, plog, mlog, lin, pooled):
     """Penalised residual and harmonic magnitude sum of one frame on the whole grid.
@@ -185,12 +185,12 @@ def _frame_costs(p, r_tot, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, G,
     return low, comp
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _evidence(low_g, c0, half, pen_f):
     return c0 - (half * math.log(low_g) + pen_f)
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _best_order(g, r_tot, plog, h_phase, h_shift, gend, norm, n_eff, pen_h, floor_rel, mismatch):
     """Model order that minimises the penalised cost at grid point ``g``."""
     q = math.exp(2.0 * pen_h / n_eff)
@@ -211,7 +211,7 @@ def _best_order(g, r_tot, plog, h_phase, h_shift, gend, norm, n_eff, pen_h, floo
     return best_l
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _parabolic(ym, y0, yp):
     """Vertex offset (in grid steps, within +-0.5) and height of a 3-point parabola."""
     den = ym - 2.0 * y0 + yp
@@ -225,7 +225,7 @@ def _parabolic(ym, y0, yp):
     return d, y0 - 0.25 * (ym - yp) * d
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _peak(low, g, c0, half, pen_f):
     """Sub-grid offset and height of the evidence peak at grid point ``g``."""
     e0 = _evidence(low[g], c0, half, pen_f)
@@ -235,7 +235,7 @@ def _peak(low, g, c0, half, pen_f):
                       _evidence(low[g + 1], c0, half, pen_f))
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _scratch(n_phase, J):
     # single precision: twice the SIMD width in the summation; the residual floor
     # (>= 1e-3 of the frame energy) keeps the cancellation error far below it
@@ -246,7 +246,7 @@ def _scratch(n_phase, J):
             np.zeros(m * n_phase + 2 * r, dtype=np.float32))
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def pick_candidates(P, R, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, log2_grid,
                     norm, n_eff, pen_h, pen_f, floor_rel, mismatch, K):
     """Top-``K`` f0 candidates of every frame from the harmonic evidence.
@@ -343,7 +343,7 @@ def pick_candidates(P, R, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, log2_
     return cand_f, cand_ev, cand_o, best_ev
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def evidence_map(P, R, mag_ref, tab_idx, tab_w, h_phase, h_shift, gend, n_phase, G, norm, n_eff,
                  pen_h, pen_f, floor_rel, mismatch):
     """Full (T, G) evidence, order and compressed-salience maps (for figures and tests)."""

@@ -35,7 +35,7 @@ def transition_params(*, hop_s: float, smoothing: float, glide_oct_s: float,
     return a, math.log(p_switch), -hop_s / voiced_run_s
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def viterbi(lf, ev, unv, a, log_switch, log_stay):
     """Most likely state sequence.
 
@@ -108,7 +108,7 @@ def viterbi(lf, ev, unv, a, log_switch, log_stay):
     return path
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def voicing_posterior(lf, ev, unv, a, log_switch, log_stay):
     """Posterior probability of the voiced states, per frame (forward-backward).
 

@@ -50,7 +50,7 @@ def frames(y: np.ndarray, starts: np.ndarray, frame_len: int) -> np.ndarray:
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _gather(y, starts, out):
     n = y.shape[0]
     F, L = out.shape
@@ -69,7 +69,7 @@ def frame_energies(y: np.ndarray, starts: np.ndarray, frame_len: int) -> np.ndar
     return out
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _frame_energies(y, starts, frame_len, out):
     n = y.shape[0]
     for i in range(starts.shape[0]):
@@ -81,7 +81,7 @@ def _frame_energies(y, starts, frame_len, out):
         out[i] = s2 - s1 * s1 / frame_len
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _window_frames(y, starts, window, buf, energy, demean):
     """Windowed frames (mean-removed if ``demean``) into the zero-padded ``buf``;
     weighted energies."""
@@ -110,7 +110,7 @@ def _window_frames(y, starts, window, buf, energy, demean):
         energy[i] = e
 
 
-@njit(cache=True)
+@njit(cache=True, nogil=True)
 def _abs2(spec, out):
     F, B = spec.shape
     for i in range(F):
