@@ -26,8 +26,6 @@ __all__ = ["DatasetWriter", "labels_of", "file_stats", "write_summary"]
 #: Parquet key-value metadata key of the dataset's provenance record.
 METADATA_KEY = b"harmtrack"
 
-_SKIP = {"harmonic_amplitudes"}
-
 
 def labels_of(task, rec):
     """``(columns, provenance)`` of a finished file, or None when it has no labels.
@@ -74,11 +72,13 @@ ROW_GROUP_ROWS = 65536
 
 
 def _arrow_columns(cols: dict) -> dict:
-    """The label columns with the dataset's types (in label-file order)."""
+    """The label columns with the dataset's types, in label-file order (whatever the
+    order of ``cols``)."""
+    from .io.columns import table_columns
+
     out = {}
-    for key, arr in cols.items():
-        if key in _SKIP:
-            continue
+    for key in table_columns(cols):
+        arr = cols[key]
         if arr.dtype == bool:
             out[key] = np.asarray(arr, dtype=bool)
         elif key == "model_order":

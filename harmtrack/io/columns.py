@@ -150,12 +150,16 @@ def columns_markdown() -> str:
     return "\n".join(lines)
 
 
-def track_table(track) -> dict[str, np.ndarray]:
+def track_table(track, *, validate: bool = True) -> dict[str, np.ndarray]:
     """The columns of a :class:`harmtrack.Track` as a table.
 
     Parameters
     ----------
     track : Track
+    validate : bool
+        Check the table with :func:`check_table` (the writers' callers may skip
+        it for a track the tracker has just made: the checks cost more than the
+        encoding of a short file).
 
     Returns
     -------
@@ -187,7 +191,7 @@ def track_table(track) -> dict[str, np.ndarray]:
         for j, q in enumerate(np.asarray(track.order_numbers, dtype=np.float64)):
             table[order_name(q)] = oa[:, j]
             table[order_name(q, True)] = oa_db[:, j]
-    return check_table(table, name="<track>")
+    return check_table(table, name="<track>") if validate else table
 
 
 def check_table(columns: dict, *, name: str) -> dict[str, np.ndarray]:
