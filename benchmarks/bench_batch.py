@@ -32,6 +32,7 @@ floor fails and 0 otherwise; its last line is the number of failed floors.
 """
 
 import _single_thread  # noqa: F401, I001  (first: one thread before numpy loads)
+from _floors import Floors  # noqa: E402
 
 import argparse  # noqa: E402
 import csv  # noqa: E402
@@ -1053,10 +1054,8 @@ def main(argv=None):
                           f"({100 * (with_env / plain - 1):+.0f} %)")
 
         # --- floors ------------------------------------------------------------------------
-        floors = []
-
-        def floor(name, ok, detail):
-            floors.append({"floor": name, "pass": bool(ok), "detail": detail})
+        floors = Floors()
+        floor = floors.add
 
         t1, t2 = summary["local1"]["throughput"], summary["local2"]["throughput"]
         floor(f"2 local workers >= {SCALING_FLOOR:g} x 1 worker", t2 >= SCALING_FLOOR * t1,
@@ -1066,11 +1065,9 @@ def main(argv=None):
               ts >= SHORT_FILE_FLOOR * t2,
               f"{100 * ts / t2:.0f} % ({ts:.0f} vs {t2:.0f} audio h/h)")
         busy_runs = sum(r["other_cores"] > OTHER_LOAD_WARN for rs in runs.values() for r in rs)
-        print("\nfloors" + (f"  (note: {busy_runs} run(s) shared the machine with other load)"
-                            if busy_runs else ""))
-        for f in floors:
-            print(f"  {'PASS' if f['pass'] else 'FAIL'}  {f['floor']:<46s} {f['detail']}")
-        n_fail = sum(not f["pass"] for f in floors)
+        n_fail = floors.report(
+            note=f"note: {busy_runs} run(s) shared the machine with other load" if busy_runs else "",
+            width=46)
 
         if args.json:
             doc = {
@@ -1089,7 +1086,7 @@ def main(argv=None):
                                 "load_average_1min": load[0]},
                 "runs": {k: [{kk: (vv.tolist() if isinstance(vv, np.ndarray) else vv)
                               for kk, vv in r.items()} for r in rs] for k, rs in runs.items()},
-                "summary": summary, "breakdown": breakdown, "floors": floors,
+                "summary": summary, "breakdown": breakdown, "floors": floors.items,
                 "failed_floors": n_fail,
             }
             args.json.parent.mkdir(parents=True, exist_ok=True)

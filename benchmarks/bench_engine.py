@@ -18,6 +18,7 @@ floor fails and 0 otherwise; its last line is the number of failed floors.
 """
 
 import _single_thread  # noqa: F401, I001  (first: one thread before numpy loads)
+from _floors import Floors  # noqa: E402
 
 import argparse  # noqa: E402
 import json  # noqa: E402
@@ -471,10 +472,8 @@ def main(argv=None):
           f"yin {pooled['yin']['rtf']:.4f} (harmtrack first call {compile_s:.2f} s not included)")
 
     # --- floors ------------------------------------------------------------------
-    floors = []
-
-    def floor(name, ok, detail):
-        floors.append({"floor": name, "pass": bool(ok), "detail": detail})
+    floors = Floors()
+    floor = floors.add
 
     p = pooled["pyin"]
     floor(f"pooled gross harmtrack <= {GROSS_FACTOR_FLOOR:g} x pyin",
@@ -482,11 +481,7 @@ def main(argv=None):
           f"{h['gross']:.2f} % vs {GROSS_FACTOR_FLOOR:g} x {p['gross']:.2f} % = "
           f"{GROSS_FACTOR_FLOOR * p['gross']:.2f} %")
 
-    print()
-    print("floors")
-    for f in floors:
-        print(f"  {'PASS' if f['pass'] else 'FAIL'}  {f['floor']:<42s} {f['detail']}")
-    n_fail = sum(not f["pass"] for f in floors)
+    n_fail = floors.report()
 
     if args.json:
         doc = {
@@ -514,7 +509,7 @@ def main(argv=None):
             "harmtrack_first_call_s": compile_s,
             "files": [{k: r[k] for k in ("condition", "cylinders", "health", "seed", "audio_s",
                                          "seconds")} for r in records],
-            "results": results, "pooled": pooled, "floors": floors, "failed_floors": n_fail,
+            "results": results, "pooled": pooled, "floors": floors.items, "failed_floors": n_fail,
         }
         args.json.parent.mkdir(parents=True, exist_ok=True)
         args.json.write_text(json.dumps(doc, indent=2, default=float) + "\n")

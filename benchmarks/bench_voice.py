@@ -14,6 +14,7 @@ failed floors on its last line.
 """
 
 import _single_thread  # noqa: F401, I001  (first: one thread before numpy loads)
+from _floors import Floors  # noqa: E402
 
 import argparse  # noqa: E402
 import importlib.util  # noqa: E402
@@ -501,10 +502,8 @@ def main(argv=None):
         print(f"CLI not available ({cli['reason']})")
 
     # --- floors ------------------------------------------------------------
-    floors = []
-
-    def floor(name, ok, detail):
-        floors.append({"floor": name, "pass": bool(ok), "detail": detail})
+    floors = Floors()
+    floor = floors.add
 
     for c in conds:
         h, p, y_ = (results[c][m] for m in METHODS)
@@ -524,11 +523,7 @@ def main(argv=None):
     floor("RTF harmtrack <= yin (pooled)", allr["harmtrack"]["rtf"] <= allr["yin"]["rtf"],
           f"{allr['harmtrack']['rtf']:.4f} vs yin {allr['yin']['rtf']:.4f}")
 
-    print()
-    print("floors")
-    for f in floors:
-        print(f"  {'PASS' if f['pass'] else 'FAIL'}  {f['floor']:<42s} {f['detail']}")
-    n_fail = sum(not f["pass"] for f in floors)
+    n_fail = floors.report()
 
     if args.json:
         doc = {
@@ -546,7 +541,7 @@ def main(argv=None):
                 "load_average_1min": load[0], "cpus": os.cpu_count(),
             },
             "utterances": [dict(s, vowels=list(s["vowels"])) for s in specs],
-            "results": results, "pooled": allr, "cli": cli, "floors": floors,
+            "results": results, "pooled": allr, "cli": cli, "floors": floors.items,
             "failed_floors": n_fail,
         }
         args.json.parent.mkdir(parents=True, exist_ok=True)

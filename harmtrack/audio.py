@@ -12,7 +12,7 @@ import numpy as np
 
 from .errors import InputError, warn
 
-__all__ = ["AudioInfo", "load", "decode", "as_mono", "check_signal", "resample", "file_sha256"]
+__all__ = ["AudioInfo", "load", "decode", "as_mono", "check_signal", "resample"]
 
 
 @dataclass(frozen=True)
@@ -30,18 +30,6 @@ class AudioInfo:
     def as_dict(self) -> dict:
         return dict(path=self.path, sr=self.sr, channels=self.channels, frames=self.frames,
                     format=self.format, subtype=self.subtype, sha256=self.sha256)
-
-
-def file_sha256(path: str, *, chunk: int = 1 << 20) -> str:
-    """SHA-256 of a file's bytes, hex."""
-    h = hashlib.sha256()
-    with open(path, "rb") as f:
-        while True:
-            b = f.read(chunk)
-            if not b:
-                break
-            h.update(b)
-    return h.hexdigest()
 
 
 def load(path: str | os.PathLike) -> tuple[np.ndarray, float, AudioInfo]:

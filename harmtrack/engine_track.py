@@ -27,10 +27,9 @@ import numpy as np
 import scipy.ndimage
 
 from . import machinery
-from .audio import as_mono, resample
 from .config import ResolvedConfig, TrackerConfig
 from .result import Track
-from .tracker import track_signal
+from .tracker import prepare_signal, track_prepared, track_signal
 
 __all__ = ["track_engine"]
 
@@ -108,7 +107,8 @@ def track_engine(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
     public interface.
     """
     C = cfg.cylinders
-    first = track_signal(y, sr, cfg, name=name)
+    prepared = prepare_signal(y, sr, cfg, name=name)
+    first = track_prepared(prepared)
     T = len(first)
     per_rpm = machinery.firing_hz_per_rpm(cylinders=C, strokes=cfg.strokes)
     K_out = int(round(cfg.max_order * cfg.strokes / 2))
@@ -119,10 +119,7 @@ def track_engine(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
         return dataclasses.replace(
             first, rpm=nan, order_numbers=orders, order_amplitudes=np.full((T, K_out), np.nan),
             uneven_db=nan.copy(), uneven_flag=np.zeros(T, dtype=bool))
-    y = as_mono(y, name=name)
-    rc = cfg.resolve(float(sr))
-    ya, asr = (y, float(sr)) if rc.sr == float(sr) else resample(y, float(sr), rc.sr)
-    ya = ya - np.mean(ya)
+    rc, ya, asr = prepared.rc, prepared.ya, prepared.rc.sr
     times = first.times
 
     # 2. refinement in the angle domain

@@ -9,6 +9,7 @@ from __future__ import annotations
 import dataclasses
 import math
 from functools import lru_cache
+from typing import NamedTuple
 
 import numpy as np
 
@@ -18,7 +19,7 @@ from .config import ResolvedConfig, TrackerConfig
 from .errors import InputError
 from .result import Track
 
-__all__ = ["track_signal", "run", "Analyzer", "estimate_frame", "EVIDENCE_OFFSET"]
+__all__ = ["track_signal", "prepare_signal", "track_prepared", "Prepared", "run", "Analyzer", "estimate_frame", "EVIDENCE_OFFSET"]
 
 #: Evidence (approximate log Bayes factor, nats) at which a voiced candidate and
 #: the unvoiced state are equally likely before smoothing: zero, even odds.  In
@@ -150,10 +151,30 @@ def run(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> Track:
     return track_signal(y, sr, cfg, name=name)
 
 
+class Prepared(NamedTuple):
+    """Samples checked and brought to the analysis rate (see :func:`prepare_signal`)."""
+
+    sr: float            # rate of the input, Hz
+    n_frames: int        # frames of the track
+    rc: ResolvedConfig   # settings at the analysis rate
+    ya: np.ndarray       # the samples at ``rc.sr``, constant offset removed
+
+
 def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> Track:
     """Track f0, voicing and harmonic amplitudes of samples ``y`` at ``sr`` Hz.
 
     See :func:`harmtrack.track` for the public interface.
+    """
+    return track_prepared(prepare_signal(y, sr, cfg, name=name))
+
+
+def prepare_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> Prepared:
+    """Check the samples and settings, resample to the analysis rate, remove the offset.
+
+    Raises
+    ------
+    InputError, HarmtrackError
+        Unusable samples or settings (see :func:`harmtrack.track`).
     """
     y = as_mono(y, name=name)
     try:
@@ -175,7 +196,13 @@ def track_signal(y, sr: float, cfg: TrackerConfig, *, name: str = "<array>") -> 
         )
     # A constant offset would turn into a step where the frames run past the ends
     # of the recording (zeros outside): remove it.  Local offsets are fitted.
-    ya = ya - np.mean(ya)
+    return Prepared(sr=sr, n_frames=n_frames, rc=rc, ya=ya - np.mean(ya))
+
+
+def track_prepared(p: Prepared) -> Track:
+    """The tracking pipeline on samples from :func:`prepare_signal`."""
+    rc, ya, n_frames, sr = p.rc, p.ya, p.n_frames, p.sr
+    cfg = rc.cfg
     yw = ya
     gain = np.ones(2)
     if cfg.prewhiten:

@@ -111,7 +111,7 @@ def encode_labels(track, *, fmt: str = "csv", provenance: dict | None = None) ->
 
 
 def write_labels(track, path: str | os.PathLike, *, fmt: str | None = None,
-                 provenance: dict | None = None, durable: bool = True) -> Path:
+                 provenance: dict | None = None) -> Path:
     """Write the frames of ``track`` to a label file, atomically.
 
     Parameters
@@ -126,9 +126,6 @@ def write_labels(track, path: str | os.PathLike, *, fmt: str | None = None,
     provenance : dict, optional
         Entries that replace or extend the provenance record built from the
         track (see the module documentation).
-    durable : bool
-        Sync the file and its folder to disk before returning (see
-        :func:`harmtrack.io.atomic.atomic_write_bytes`).
 
     Returns
     -------
@@ -144,7 +141,7 @@ def write_labels(track, path: str | os.PathLike, *, fmt: str | None = None,
     fmt = resolve_format(path, fmt)
     check_destination(path)
     data = encode_labels(track, fmt=fmt, provenance=provenance)
-    return atomic_write_bytes(path, data, durable=durable)
+    return atomic_write_bytes(path, data)
 
 
 def read_labels(path: str | os.PathLike, *, fmt: str | None = None) -> tuple[dict, dict]:
