@@ -24,7 +24,9 @@ processes of the machine are recorded too (a run that shared the machine is
 flagged).  A breakdown section measures where the time goes: a fresh process
 (interpreter, imports, numba cache load), the fixed cost of a one-file batch,
 the analysis alone against the batch's per-file seconds, the Parquet dataset
-(the same runs with ``--no-dataset``), and CPU by process.  See
+(the same runs with ``--no-dataset``), two independent 1-worker runs on
+the two halves of the corpus (what two processes reach with no coordination),
+and CPU by process.  See
 ``benchmarks/README.md`` ("Batch benchmark") for the columns.
 
 The script is a report run by hand, not a test.  It exits with status 1 when a
@@ -684,6 +686,32 @@ def time_subprocess(cmd, *, cwd, repeats=3):
     return float(np.median(walls)), out
 
 
+def run_halves(corpus, cwd, fresh_outdir):
+    """Wall seconds until two ``--workers 1`` batches, each given half the files of
+    ``corpus`` as a manifest and started together, have both exited."""
+    files = sorted(Path(corpus).glob("*.wav"))
+    procs, manifests = [], []
+    for i, part in enumerate((files[0::2], files[1::2])):
+        man = Path(cwd) / f"half{i}_{time.monotonic_ns()}.txt"
+        man.write_text("".join(f"{f}\n" for f in part))
+        manifests.append(man)
+    outs = [fresh_outdir(f"half{i}") for i in range(2)]
+    t0 = time.perf_counter()
+    for man, out in zip(manifests, outs):
+        procs.append(subprocess.Popen(
+            [sys.executable, "-m", "harmtrack", "batch", str(man), "-o", str(out), "--formats",
+             FORMATS, "--preset", PRESET, "-q", "--workers", "1"],
+            cwd=str(cwd), env=child_env(), stdout=subprocess.DEVNULL, stderr=subprocess.PIPE))
+    errs = [p.communicate(timeout=RUN_TIMEOUT_S)[1] for p in procs]
+    wall = time.perf_counter() - t0
+    for p, err in zip(procs, errs):
+        if p.returncode != 0:
+            raise RuntimeError(f"half batch failed: {err.decode(errors='replace')[-300:]}")
+    for d in outs + manifests:
+        shutil.rmtree(d, ignore_errors=True) if d.is_dir() else d.unlink()
+    return wall
+
+
 def analysis_times(corpus, n=20):
     """Median seconds of ``harmtrack.track_file`` (read + analysis) on ``n`` files, here.
 
@@ -982,6 +1010,21 @@ def main(argv=None):
                       f"the batch's per-file seconds ({summary[cfg_key]['label']}) "
                       f"{job * 1e3:.1f} ms\n"
                       f"    = {ana / d * 1e3:.2f} vs {job / d * 1e3:.2f} ms per audio second")
+
+            # the most any two processes can do here: two independent 1-worker runs,
+            # each on half the 10 s files, started together (no coordination at all)
+            halves = []
+            for rep in range(repeats):
+                idle_gate()
+                halves.append(run_halves(corpora["long"]["folder"], work, fresh_outdir))
+            h_wall = float(np.median(halves))
+            t_one = summary["local1"]["wall_s"]
+            breakdown["independent_halves"] = {"wall_s": h_wall, "runs": halves,
+                                               "ratio_vs_1_worker": t_one / h_wall}
+            print(f"  two independent 1-worker runs on the two halves of the 10 s files, started "
+                  f"together: {h_wall:.2f} s to both exits\n"
+                  f"    -> {t_one / h_wall:.2f} x one worker: the scaling two processes reach "
+                  "here with no coordination at all (start-up paid by each, cores shared)")
 
             # dataset assembly: the same runs with --no-dataset (public option)
             nods = {}

@@ -263,11 +263,6 @@ def label_chunk(tasks: list) -> list:
 #: cost of a round trip to a worker process is shared by several files.
 CHUNK_AUDIO_S = 8.0
 
-#: Chunks queued per helper process: enough to keep it busy while this process
-#: labels a chunk of its own; at the end, queued chunks not yet started are taken
-#: back and labelled here.
-HELPER_QUEUE = 4
-
 #: Bytes of a file per second of audio assumed for chunking: 16-bit mono at
 #: 16 kHz (compressed or multichannel files only shift the chunk sizes).
 CHUNK_BYTES_PER_S = 32000.0
@@ -295,11 +290,13 @@ def _chunks(tasks: list, sizes: np.ndarray, workers: int) -> list:
 
 
 def _run_local(chunks, workers, on_done):
-    """Label the chunks here and in ``workers - 1`` forked helper processes.
+    """Label the chunks here and in ``workers - 1`` helper processes.
 
-    This process is one of the workers: between its own chunks it collects the
-    helpers' results (a chunk takes a fraction of a second), so no core waits
-    on a coordinator.
+    Every process, this one included, claims the next chunk from a shared
+    counter until none is left, so the work stays balanced to the end.  Helpers
+    send their records back through a queue whose sending thread lets them go
+    on labelling meanwhile; this process takes them between its own chunks.  A
+    chunk whose helper died before sending it back is labelled here at the end.
     """
     if workers <= 1 or len(chunks) <= 1:
         for chunk in chunks:
@@ -307,8 +304,7 @@ def _run_local(chunks, workers, on_done):
                 on_done(rec)
         return
     import multiprocessing
-    from collections import deque
-    from concurrent.futures import FIRST_COMPLETED, ProcessPoolExecutor, wait
+    import queue
 
     # Forked helpers inherit the loaded modules and compiled kernels of this
     # process (warmed up first), which saves each about half a second of
@@ -318,33 +314,71 @@ def _run_local(chunks, workers, on_done):
         ctx = multiprocessing.get_context("fork")
     else:  # pragma: no cover - platforms without fork
         ctx = multiprocessing.get_context("spawn")
-    todo = deque(chunks)
-    inflight: dict = {}  # future -> its chunk
-    with ProcessPoolExecutor(max_workers=workers - 1, mp_context=ctx) as pool:
-        while todo or inflight:
-            # enough queued that a helper never waits while this process labels
-            while todo and len(inflight) < HELPER_QUEUE * (workers - 1):
-                chunk = todo.popleft()
-                inflight[pool.submit(label_chunk, chunk)] = chunk
-            mine = todo.popleft() if todo else _take_back(inflight)
-            if mine is not None:
-                for rec in label_chunk(mine):
-                    on_done(rec)
-                finished = [f for f in inflight if f.done()]
-            else:
-                finished, _ = wait(list(inflight), return_when=FIRST_COMPLETED)
-            for fut in finished:
-                inflight.pop(fut)
-                for rec in fut.result():
-                    on_done(rec)
+    counter = ctx.Value("q", 0)
+    results = ctx.Queue()
+    helpers = [ctx.Process(target=_helper, args=(chunks, counter, results, os.getpid()),
+                           daemon=True, name=f"harmtrack-helper-{i + 1}")
+               for i in range(workers - 1)]
+    done: set = set()
+
+    def take(item):
+        index, recs = item
+        for rec in recs:
+            on_done(rec)
+        done.add(index)
+
+    try:
+        for h in helpers:
+            h.start()
+        while (i := _claim(counter, len(chunks))) is not None:
+            take((i, label_chunk(chunks[i])))
+            while True:
+                try:
+                    take(results.get_nowait())
+                except queue.Empty:
+                    break
+        # the helpers' last chunks
+        while len(done) < len(chunks):
+            try:
+                take(results.get(timeout=0.2))
+            except queue.Empty:
+                if not any(h.is_alive() for h in helpers):
+                    try:  # a record sent just before its helper ended
+                        take(results.get(timeout=0.2))
+                    except queue.Empty:
+                        break
+        for i in range(len(chunks)):  # chunks lost with a helper that died
+            if i not in done:
+                take((i, label_chunk(chunks[i])))
+    finally:
+        for h in helpers:
+            if h.is_alive():
+                h.terminate()
+        for h in helpers:
+            h.join()
+        results.close()
+        results.cancel_join_thread()
 
 
-def _take_back(inflight: dict):
-    """A chunk queued for a helper but not started yet, withdrawn, or None."""
-    for fut in list(inflight):
-        if fut.cancel():
-            return inflight.pop(fut)
-    return None
+def _claim(counter, n: int):
+    """The index of the next chunk nobody has taken yet, or None."""
+    with counter.get_lock():
+        i = counter.value
+        if i >= n:
+            return None
+        counter.value = i + 1
+        return i
+
+
+def _helper(chunks, counter, results, parent_pid: int) -> None:
+    """A helper process: label claimed chunks and send their records back."""
+    while os.getppid() == parent_pid:  # a helper does not outlive its batch
+        i = _claim(counter, len(chunks))
+        if i is None:
+            break
+        results.put((i, label_chunk(chunks[i])))
+    results.close()
+    results.join_thread()  # every record is handed over before the helper ends
 
 
 def _run_dask(chunks, scheduler, workers, on_done):

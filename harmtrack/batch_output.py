@@ -116,6 +116,11 @@ class DatasetWriter:
         self._rows = 0
         self._files: list = []
         self._head: dict = {}
+        # Row groups are encoded and compressed on a thread of their own (pyarrow
+        # lets go of the interpreter meanwhile), so the process that collects the
+        # files keeps labelling and keeps its helpers fed.  One group at a time.
+        self._pool = None
+        self._pending = None
 
     def add(self, task, cols: dict, prov: dict) -> None:
         """Append one file's frames (files must come in input order)."""
@@ -136,32 +141,56 @@ class DatasetWriter:
             self._flush()
 
     def _flush(self) -> None:
+        """Hand the buffered files to the writing thread as one row group."""
+        if not self._buffer:
+            return
+        self._wait()
+        if self._pool is None:
+            from concurrent.futures import ThreadPoolExecutor
+
+            self._pool = ThreadPoolExecutor(max_workers=1, thread_name_prefix="dataset")
+        self._pending = self._pool.submit(self._write_group, self._buffer, self._keys)
+        self._buffer = []
+        self._rows = 0
+
+    def _wait(self) -> None:
+        """Wait for the row group being written; its error, if any, is raised here."""
+        if self._pending is not None:
+            pending, self._pending = self._pending, None
+            pending.result()
+
+    def _write_group(self, buffer: list, keys: tuple) -> None:
         import pyarrow as pa
         import pyarrow.parquet as pq
 
-        if not self._buffer:
-            return
-        counts = [a["time_s"].shape[0] for _, _, a in self._buffer]
-        names = [n for _, n, _ in self._buffer]
+        counts = [a["time_s"].shape[0] for _, _, a in buffer]
+        names = [n for _, n, _ in buffer]
         data = {
-            "file_id": pa.array(np.repeat([f for f, _, _ in self._buffer], counts).astype(np.int32)),
+            "file_id": pa.array(np.repeat([f for f, _, _ in buffer], counts).astype(np.int32)),
             "name": pa.DictionaryArray.from_arrays(
                 pa.array(np.repeat(np.arange(len(names), dtype=np.int32), counts)),
                 pa.array(names, type=pa.string())),
         }
-        for key, _ in self._keys:
-            data[key] = pa.array(np.concatenate([a[key] for _, _, a in self._buffer]))
+        for key, _ in keys:
+            data[key] = pa.array(np.concatenate([a[key] for _, _, a in buffer]))
         table = pa.table(data)
         if self._writer is None:
             self._writer = pq.ParquetWriter(os.fspath(self._tmp), table.schema,
                                             compression="zstd", use_dictionary=["name"])
         self._writer.write_table(table, row_group_size=max(1, table.num_rows))
-        self._buffer = []
-        self._rows = 0
+
+    def _stop_thread(self) -> None:
+        if self._pool is not None:
+            self._pool.shutdown(wait=True)
+            self._pool = None
 
     def close(self) -> Path | None:
         """Finish the file and put it in place; None when no file had frames."""
-        self._flush()
+        try:
+            self._flush()
+            self._wait()
+        finally:
+            self._stop_thread()
         if self._writer is None:
             return None
         meta = dict(self._head, files=self._files)
@@ -173,6 +202,8 @@ class DatasetWriter:
 
     def abort(self) -> None:
         """Drop the partial file."""
+        self._pending = None
+        self._stop_thread()  # a row group being written is finished first
         if self._writer is not None:
             self._writer.close()
             self._writer = None

@@ -299,3 +299,29 @@ def test_local_dask_cluster_gives_the_local_labels(tmp_path, dataset):
                      "-q", cwd=tmp_path)
     assert res.returncode == 2, res.stderr
     assert _tree_digest(dask_local) == _tree_digest(local)
+
+
+def test_work_of_a_helper_that_dies_is_redone(tmp_path, dataset, monkeypatch):
+    # A helper process that ends abruptly (killed, out of memory) loses the chunk
+    # it was labelling; the batch process labels that chunk itself at the end.
+    parent = os.getpid()
+    real = batch.label_chunk
+
+    marker = tmp_path / "helper_died"
+
+    def helper_dies(tasks):
+        if os.getpid() != parent:  # the helper's first chunk
+            marker.write_text(tasks[0].name)
+            os._exit(9)
+        return real(tasks)
+
+    monkeypatch.setattr(batch, "label_chunk", helper_dies)
+    monkeypatch.setattr(batch, "CHUNK_AUDIO_S", 0.5)  # one file per chunk
+    ref = tmp_path / "ref"
+    assert _harmtrack("batch", dataset, "-o", ref, "--workers", "1", "-q").returncode == 2
+    out = tmp_path / "out"
+    tasks = batch.plan_batch(dataset, out)
+    rep = batch.run_batch(tasks, out, workers=2)
+    assert marker.exists()  # the helper did take a chunk, and died with it
+    assert rep.counts == {"ok": N_GOOD, "skipped": 0, "failed": 3}
+    assert _tree_digest(out) == _tree_digest(ref)
