@@ -48,8 +48,9 @@ class TrackerConfig:
         input at or below it is analysed at its own rate.
     search_sr : int or None
         Rate of the candidate search (4000 to 96000 Hz): the harmonic-summation
-        search runs on a copy decimated to this rate, the NLS refinement and
-        the amplitudes on the full analysis band.  ``None``: the analysis rate.
+        search runs on a copy decimated by the whole factor nearest to the
+        analysis rate over this rate, the NLS refinement and the amplitudes on
+        the full analysis band.  ``None``: the analysis rate.
     band_hz : float or None
         Highest frequency of a harmonic that enters the fit.  ``None`` means 95 %
         of the analysis Nyquist frequency.
@@ -234,11 +235,21 @@ class ResolvedConfig:
 
     def search(self) -> "ResolvedConfig":
         """Settings of the candidate search (see ``TrackerConfig.search_sr``)."""
-        rate = self.cfg.search_sr
+        if self.cfg.search_sr is None:
+            return self
+        factor = self.search_factor
+        rate = self.sr / factor
         # the search needs at least two harmonics of fmax inside its band
-        if rate is None or rate >= self.sr or 0.475 * rate <= 2.0 * self.cfg.fmax_hz:
+        if factor < 2 or 0.475 * rate <= 2.0 * self.cfg.fmax_hz:
             return self
         return self.at_rate(rate)
+
+    @property
+    def search_factor(self) -> int:
+        """Whole decimation factor from the analysis rate to the search rate (1: none)."""
+        if self.cfg.search_sr is None:
+            return 1
+        return max(1, int(round(self.sr / self.cfg.search_sr)))
 
     @property
     def nfft(self) -> int:

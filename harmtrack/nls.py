@@ -525,7 +525,8 @@ def analyse_frames(fw, fs, ratio, ra, gain, omega0, order0, band_w, H, pen_h, pe
 
     ``fw`` (F, N) are the frames at the analysis rate, ``fs`` (F, Ns) at the
     search rate (``ratio`` times lower), ``ra`` (F,) their energies before
-    prewhitening.  ``band_w`` is the analysed band edge in radians per sample
+    prewhitening, ``noise_var`` (F,) the least noise power per sample each
+    frame is assumed to hold.  ``band_w`` is the analysed band edge in radians per sample
     (analysis rate): harmonics above it are neither fitted nor reported (NaN);
     the search band is ``band_w * ratio`` capped at 0.95 pi of the search rate.
 
@@ -544,7 +545,7 @@ def analyse_frames(fw, fs, ratio, ra, gain, omega0, order0, band_w, H, pen_h, pe
         lmax = max(1, min(H, int(band_w / omega0[i])))
         lmax_s = max(1, int(band_s / (omega0[i] * ratio)))
         w, L, h = analyse_frame(fw[i], fs[i], ratio, ra[i], gain, omega0[i], order0[i], lmax,
-                                lmax_s, pen_h, pen_f, noise_var, amps)
+                                lmax_s, pen_h, pen_f, noise_var[i], amps)
         w_out[i] = w
         l_out[i] = L
         h_out[i] = h

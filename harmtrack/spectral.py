@@ -22,6 +22,10 @@ __all__ = [
     "noise_floor_psd",
     "whitening_filter",
     "prewhiten",
+    "floor_from_spectra",
+    "decimator_taps",
+    "decimate",
+    "fir_segment",
 ]
 
 
@@ -247,6 +251,13 @@ def noise_floor_psd(
     n_avail = max(1, 1 + (y.size - frame_len) // hop)
     pick = np.unique(np.linspace(0, n_avail - 1, min(n_avail, max_frames)).round().astype(np.int64))
     ps, _ = windowed_spectra(y, pick * hop, analysis_window(frame_len), nfft, demean=False)
+    return floor_from_spectra(ps, sr, nfft=nfft, time_quantile=time_quantile, smooth_hz=smooth_hz)
+
+
+def floor_from_spectra(ps: np.ndarray, sr: float, *, nfft: int, time_quantile: float = 0.2,
+                       smooth_hz: float = 400.0) -> tuple[np.ndarray, np.ndarray]:
+    """The noise floor and loud-frame spectrum of :func:`noise_floor_psd` from the
+    power spectra ``ps`` (F, nfft // 2 + 1) of the frames it picked."""
     tot = ps.sum(axis=1)
     loud = ps[tot >= _low_order_stat(tot, 0.8, axis=0)].mean(axis=0)
     floor = _low_order_stat(ps, time_quantile, axis=0)
@@ -325,3 +336,68 @@ def prewhiten(y: np.ndarray, h: np.ndarray, *, nfft: int = 8192) -> np.ndarray:
         out = np.fft.irfft(np.fft.rfft(seg, nfft) * H, nfft)[: seg.size + h.size - 1]
         full[b0:b0 + out.size] += out
     return full[d:d + n]
+
+
+@lru_cache(maxsize=8)
+def decimator_taps(factor: int, *, atten_db: float = 80.0) -> np.ndarray:
+    """Low-pass FIR for decimation by ``factor``.
+
+    A Kaiser-windowed sinc cut off at the output rate's Nyquist frequency, with
+    its transition band from 0.475 to 0.525 of the output rate: what lies above
+    0.525 x the output rate is at least ``atten_db`` down before it folds into
+    the band kept (below 0.475 x the output rate, which is the search band).
+    Odd length, symmetric (linear phase), unit gain at 0 Hz.
+
+    References
+    ----------
+    J. F. Kaiser, "Nonrecursive digital filter design using the I0-sinh window
+    function", Proc. IEEE ISCAS, 1974 (the window's length and shape from the
+    attenuation and transition width).
+    """
+    if factor < 2:
+        return np.ones(1)
+    width = 0.05 / factor * 2.0 * np.pi  # transition width, rad/sample at the input rate
+    n = int(np.ceil((atten_db - 7.95) / (2.285 * width))) + 1
+    n += 1 - n % 2
+    beta = 0.1102 * (atten_db - 8.7)
+    k = np.arange(n) - (n - 1) / 2
+    h = np.sinc(k / factor) / factor * np.kaiser(n, beta)
+    h /= h.sum()
+    h.setflags(write=False)
+    return h
+
+
+def decimate(y: np.ndarray, factor: int) -> np.ndarray:
+    """``y`` low-passed with :func:`decimator_taps` and kept every ``factor``-th sample.
+
+    Zero phase: output sample ``m`` is the filtered signal at input sample
+    ``m * factor``; samples outside ``y`` count as zeros.  Output length
+    ``ceil(len(y) / factor)``.
+    """
+    if factor < 2:
+        return y
+    full = prewhiten(np.ascontiguousarray(y, dtype=np.float64), decimator_taps(factor))
+    return np.ascontiguousarray(full[::factor])
+
+
+def fir_segment(x: np.ndarray, x0: int, n_total: int | None, h: np.ndarray, lo: int, hi: int,
+                step: int = 1) -> np.ndarray:
+    """Samples ``lo, lo + step, ... < hi`` of the zero-phase FIR ``h`` applied to a signal of
+    which ``x`` holds samples ``x0 ..`` (the streaming form of :func:`prewhiten` and
+    :func:`decimate`).
+
+    The caller guarantees that ``x`` covers ``lo - len(h) // 2`` to
+    ``hi - 1 + len(h) // 2``, or that the missing samples lie outside the signal
+    (before 0, or at or after ``n_total`` when the signal's end is known); those
+    count as zeros.
+    """
+    d = h.size // 2
+    a, b = lo - d, hi + d
+    seg = np.zeros(b - a)
+    s0, s1 = max(a, x0), min(b, x0 + x.size)
+    if n_total is not None:
+        s1 = min(s1, n_total)
+    if s1 > s0:
+        seg[s0 - a:s1 - a] = x[s0 - x0:s1 - x0]
+    out = np.convolve(seg, h[::-1], mode="valid")  # out[j] = filtered sample lo + j
+    return np.ascontiguousarray(out[::step])

@@ -32,6 +32,7 @@ from .errors import HarmtrackError, warn
 
 __all__ = [
     "VOWEL_FORMANTS",
+    "speakers_recording",
     "f0_contour",
     "voice",
     "add_noise",
@@ -948,3 +949,33 @@ def demo_voice(seed=0):
     y = reverberate(y, sr, rt60_s=0.3, drr_db=3.0, seed=seed + 1)
     y = add_noise(y, 30.0, color="white", seed=seed + 2, ref="active")
     return y, sr, times, f0
+
+
+def speakers_recording(duration_s, *, sr=16000, seed=0, snr_db=20.0):
+    """A long recording of phrases by five speakers, with pauses, in white noise.
+
+    Phrases of 2 to 5 s (the ``"phrase"`` contour) at base pitches cycling
+    through 85, 140, 250, 110 and 200 Hz, on random vowels with 0.5 % jitter
+    and 5 % shimmer, separated by 0.2 to 0.8 s of silence; white noise at
+    ``snr_db`` re the active signal.  Used by the streaming tests and benchmark.
+
+    Returns
+    -------
+    ndarray of float64, shape (round(duration_s * sr),)
+    """
+    seed = _seed(seed)
+    _number("duration_s", duration_s, 0.0, 36000.0, unit="s", lo_open=True)
+    rng = np.random.default_rng(seed)
+    parts, t, j = [], 0.0, 0
+    while t < duration_s:
+        d = float(rng.uniform(2.0, 5.0))
+        times, f0 = f0_contour(d, hop_s=0.01, kind="phrase",
+                               f0_hz=(85.0, 140.0, 250.0, 110.0, 200.0)[j % 5], seed=seed + j)
+        vowels = tuple(rng.choice(["a", "e", "i", "o", "u"], size=max(2, round(d / 0.5))))
+        parts.append(voice(times, f0, sr, seed=seed + j, formants=vowels, jitter=0.005,
+                           shimmer=0.05))
+        parts.append(np.zeros(int(rng.uniform(0.2, 0.8) * sr)))
+        t += d
+        j += 1
+    y = np.concatenate(parts)[:int(round(duration_s * sr))]
+    return add_noise(y, snr_db, color="white", seed=seed + 99, ref="active")

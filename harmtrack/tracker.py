@@ -19,7 +19,9 @@ from .config import ResolvedConfig, TrackerConfig
 from .errors import InputError
 from .result import Track
 
-__all__ = ["track_signal", "prepare_signal", "track_prepared", "Prepared", "run", "Analyzer", "estimate_frame", "EVIDENCE_OFFSET"]
+__all__ = ["track_signal", "prepare_signal", "track_prepared", "Prepared", "run", "Analyzer",
+           "estimate_frame", "search_frames", "refine_frames", "noise_var_of_peak",
+           "EVIDENCE_OFFSET"]
 
 #: Evidence (approximate log Bayes factor, nats) at which a voiced candidate and
 #: the unvoiced state are equally likely before smoothing: zero, even odds.  In
@@ -110,25 +112,35 @@ def _analyzer_cached(rc: ResolvedConfig) -> Analyzer:
                     norm=2.0 / w.sum(), n_eff=w.sum() ** 2 / np.sum(w**2))
 
 
+def noise_var_of_peak(peak):
+    """Noise power per sample at :data:`NOISE_FLOOR_DB` below a signal peak ``peak``."""
+    return (np.asarray(peak, dtype=np.float64) * 10.0 ** (-NOISE_FLOOR_DB / 20.0)) ** 2
+
+
 def _noise_floor_var(y: np.ndarray) -> float:
     """Noise power per sample at :data:`NOISE_FLOOR_DB` below the peak of ``y``."""
-    return float((np.max(np.abs(y)) * 10.0 ** (-NOISE_FLOOR_DB / 20.0)) ** 2)
+    return float(noise_var_of_peak(np.max(np.abs(y))))
 
 
-def _search(ys: np.ndarray, rs: ResolvedConfig, n_frames: int, noise_var: float):
-    """Candidates (log2 f, evidence, order; each (T, K)) of every frame of ``ys``."""
+def search_frames(ys: np.ndarray, rs: ResolvedConfig, idx: np.ndarray, noise_var: np.ndarray,
+                  *, offset: int = 0):
+    """Candidates (log2 f, evidence, order; each (F, K)) of the frames ``idx``.
+
+    ``ys`` holds the search-rate signal from its sample ``offset`` on;
+    ``noise_var`` (F,) is the least noise power per sample of each frame.
+    """
     an = Analyzer.build(rs)
-    K = rs.cfg.n_candidates
-    cand_lf = np.empty((n_frames, K))
-    cand_ev = np.empty((n_frames, K))
-    cand_order = np.empty((n_frames, K), dtype=np.int64)
-    for b0 in range(0, n_frames, BLOCK_FRAMES):
-        nb = min(BLOCK_FRAMES, n_frames - b0)
-        starts = spectral.frame_starts(np.arange(b0, b0 + nb), rs.hop, rs.frame_len)
-        lf, ev, order, _ = an.candidates(ys, starts, noise_var=noise_var)
-        cand_lf[b0:b0 + nb] = lf
-        cand_ev[b0:b0 + nb] = ev
-        cand_order[b0:b0 + nb] = order
+    F, K = idx.shape[0], rs.cfg.n_candidates
+    cand_lf = np.empty((F, K))
+    cand_ev = np.empty((F, K))
+    cand_order = np.empty((F, K), dtype=np.int64)
+    for b0 in range(0, F, BLOCK_FRAMES):
+        b1 = min(F, b0 + BLOCK_FRAMES)
+        starts = spectral.frame_starts(idx[b0:b1], rs.hop, rs.frame_len) - offset
+        lf, ev, order, _ = an.candidates(ys, starts, noise_var=noise_var[b0:b1])
+        cand_lf[b0:b1] = lf
+        cand_ev[b0:b1] = ev
+        cand_order[b0:b1] = order
     return cand_lf, cand_ev, cand_order
 
 
@@ -217,9 +229,9 @@ def track_prepared(p: Prepared) -> Track:
         gain = np.abs(np.fft.rfft(h, 1024))
     # The candidate search may run on a decimated copy (TrackerConfig.search_sr).
     rs = rc.search()
-    ys = yw if rs is rc else resample(yw, rc.sr, rs.sr)[0]
-    noise_var = _noise_floor_var(ys)
-    cand_lf, cand_ev, cand_order = _search(ys, rs, n_frames, noise_var)
+    ys = yw if rs is rc else spectral.decimate(yw, int(round(rc.sr / rs.sr)))
+    noise_var = np.full(n_frames, _noise_floor_var(ya))
+    cand_lf, cand_ev, cand_order = search_frames(ys, rs, np.arange(n_frames), noise_var)
     em_v, em_u = _emissions(cand_ev, rc)
     K = cand_lf.shape[1]
     a, log_sw, log_stay = smoothing.transition_params(
@@ -234,7 +246,8 @@ def track_prepared(p: Prepared) -> Track:
     rows = np.nonzero(voiced)[0]
     f0_init[rows] = 2.0 ** cand_lf[rows, path[rows]]
     order_init[rows] = cand_order[rows, path[rows]]
-    f0, amps, order, hnr = refine_frames(yw, ya, ys, gain, rc, rs, f0_init, order_init)
+    f0, amps, order, hnr = refine_frames(yw, ya, ys, gain, rc, rs, f0_init, order_init,
+                                         noise_var)
     times = np.arange(n_frames) * cfg.hop_s
     return Track(
         times=times, f0_hz=f0, voiced=voiced, voicing_prob=np.clip(prob, 0.0, 1.0),
@@ -245,14 +258,17 @@ def track_prepared(p: Prepared) -> Track:
 
 def refine_frames(yw: np.ndarray, ya: np.ndarray, ys: np.ndarray, gain: np.ndarray,
                   rc: ResolvedConfig, rs: ResolvedConfig, f0_init: np.ndarray,
-                  order_init: np.ndarray):
+                  order_init: np.ndarray, noise_var: np.ndarray, *, idx: np.ndarray | None = None,
+                  offset: int = 0, offset_s: int = 0):
     """NLS refinement and amplitudes at the frames where ``f0_init`` is finite.
 
     ``yw`` is the signal fitted (prewhitened), ``ya`` the signal before
     prewhitening, ``ys`` the prewhitened signal at the search rate of ``rs``
     (f0 is refined on it), ``gain`` the prewhitening filter's magnitude response
     on [0, pi] rad/sample, ``order_init`` the model order the search stage found
-    for each start.
+    for each start, ``noise_var`` the least noise power per sample of each frame.
+    The frames are ``idx`` (default ``0 .. T - 1``); ``yw`` and ``ya`` hold the
+    signal from sample ``offset`` on, ``ys`` from ``offset_s`` on.
 
     Returns
     -------
@@ -271,18 +287,18 @@ def refine_frames(yw: np.ndarray, ya: np.ndarray, ys: np.ndarray, gain: np.ndarr
     rows = np.nonzero(np.isfinite(f0_init))[0]
     if rows.size == 0:
         return f0, amps, order, hnr
+    idx = np.arange(T) if idx is None else np.asarray(idx)
     pen_h = math.log(rc.frame_len)
-    noise_var = _noise_floor_var(yw)
     for b0 in range(0, rows.size, BLOCK_FRAMES):
         r = rows[b0:b0 + BLOCK_FRAMES]
-        starts = spectral.frame_starts(r, rc.hop, rc.frame_len)
+        starts = spectral.frame_starts(idx[r], rc.hop, rc.frame_len) - offset
         ra = spectral.frame_energies(ya, starts, rc.frame_len)
         fw = spectral.frames(yw, starts, rc.frame_len)
         fs = fw if rs is rc else spectral.frames(
-            ys, spectral.frame_starts(r, rs.hop, rs.frame_len), rs.frame_len)
+            ys, spectral.frame_starts(idx[r], rs.hop, rs.frame_len) - offset_s, rs.frame_len)
         w, L, h, a = nls.analyse_frames(
             fw, fs, rc.sr / rs.sr, ra, gain, 2.0 * np.pi * f0_init[r] / rc.sr, order_init[r],
-            rc.band_hz / rc.sr * 2.0 * np.pi, H, pen_h, 1.5 * pen_h, noise_var)
+            rc.band_hz / rc.sr * 2.0 * np.pi, H, pen_h, 1.5 * pen_h, noise_var[r])
         # the refinement may step past the ends of the search grid: f0 stays in range
         f0[r] = np.clip(w * rc.sr / (2.0 * np.pi), cfg.fmin_hz, cfg.fmax_hz)
         order[r] = L
