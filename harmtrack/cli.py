@@ -1,4 +1,4 @@
-"""Command-line interface: ``harmtrack track``, ``harmtrack batch`` and ``harmtrack demo``.
+"""Command-line interface: ``harmtrack track``, ``batch``, ``demo``, ``live`` and ``devices``.
 
 The commands parse options, call the public API, write label files and
 report; they do no signal processing of their own.  Heavy modules are
@@ -6,7 +6,8 @@ imported inside the commands so that ``--help`` and ``--version`` stay quick.
 
 Exit status: 0 on success, 2 for bad input, settings or usage (one line
 ``harmtrack: error: ...`` on stderr), 1 for an unexpected failure
-(``harmtrack: internal error: ...``; ``--debug`` adds the traceback).
+(``harmtrack: internal error: ...``; ``--debug`` adds the traceback), and for
+``live`` 3 when the input device is lost mid-stream (see :mod:`harmtrack.live`).
 """
 
 from __future__ import annotations
@@ -146,6 +147,10 @@ def build_parser() -> argparse.ArgumentParser:
                    help="folder for the results, created if missing "
                         f"(default: ./{DEFAULT_DEMO_DIR})")
     d.set_defaults(func=cmd_demo)
+
+    from . import live  # light at import: the capture modules load inside its commands
+
+    live.add_commands(sub, common=common, analysis=analysis)
     return parser
 
 
@@ -497,7 +502,8 @@ def main(argv: list[str] | None = None) -> int:
         return exc.code if isinstance(exc.code, int) else EXIT_USAGE
     if args.func is None:
         parser.print_usage(sys.stderr)
-        print(f"{PROG}: error: a command is required (track, batch or demo)", file=sys.stderr)
+        print(f"{PROG}: error: a command is required (track, batch, demo, live or devices)",
+              file=sys.stderr)
         return EXIT_USAGE
     from .errors import HarmtrackWarning
 
