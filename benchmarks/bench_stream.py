@@ -9,10 +9,12 @@ Run from the repository root::
   1 s, against :func:`harmtrack.track` on the same 60 s recording, and the share
   of frames on which the two agree (both unvoiced, or voiced within 10 cents);
 * the algorithmic delay (``latency_s``) of each preset at 16, 44.1 and 48 kHz;
-* first, in the fresh process: a generated recording of ``--hour-minutes``
-  minutes (default 60) written as a 16 kHz 16-bit WAV, read back in 1 s blocks
-  with soundfile, streamed, each frame's row appended to a CSV file as it is
-  produced; the peak resident memory of the process (VmHWM) before and after.
+* a generated recording of ``--hour-minutes`` minutes (default 60) written as
+  a 16 kHz 16-bit WAV, then tracked in a fresh process by
+  ``harmtrack track long.wav -o long.csv`` (read in blocks, rows written as
+  produced) and by ``harmtrack.track_file`` (read in blocks, every frame kept);
+  the peak resident memory of each (the first child's is the largest of the
+  children at that point, which is the CLI's).
 
 A report run by hand, not a test.
 """
@@ -23,6 +25,7 @@ import argparse
 import json
 import os
 import resource
+import subprocess
 import sys
 import tempfile
 import time
@@ -33,7 +36,6 @@ import soundfile as sf
 
 import harmtrack
 from harmtrack import synth
-from harmtrack.io.columns import track_table
 from harmtrack.stream import StreamTracker, concat_tracks
 
 SR = 16000
@@ -44,15 +46,29 @@ def recording(total_s, seed=0, snr_db=20.0):
     return synth.speakers_recording(total_s, sr=SR, seed=seed, snr_db=snr_db)
 
 
-def peak_rss_mb():
-    try:
-        with open("/proc/self/status") as f:
-            for line in f:
-                if line.startswith("VmHWM:"):
-                    return int(line.split()[1]) / 1024.0
-    except OSError:
-        pass
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+TRACK_FILE_PROBE = r"""
+import resource, sys
+import harmtrack
+tr = harmtrack.track_file(sys.argv[1])
+assert "read_in_blocks" in tr.settings, "not read in blocks"
+print(len(tr))
+print("PEAK_KB", resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)
+"""
+
+
+def _env():
+    env = os.environ.copy()
+    env["PYTHONPATH"] = os.pathsep.join(p for p in (str(Path(__file__).resolve().parents[1]),
+                                                    env.get("PYTHONPATH")) if p)
+    return env
+
+
+def _child_peak_mb(stdout: str) -> float:
+    """Peak RSS of the child: its own report, else the largest child's so far."""
+    for line in stdout.splitlines():
+        if line.startswith("PEAK_KB"):
+            return int(line.split()[1]) / 1024.0
+    return resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024.0
 
 
 def agree(a, b):
@@ -78,29 +94,27 @@ def main(argv=None):
                 f.write(base * (0.5 + 0.5 * ((k % 5) / 4.0)))
         size_mb = wav.stat().st_size / 1e6
         del base
-        rss0 = peak_rss_mb()
-        csv_path = Path(tmp) / "long.csv"
-        st = StreamTracker(SR)
-        frames = 0
-        t0 = time.perf_counter()
-        with open(csv_path, "w") as fh:
-            header = None
-            for block in sf.blocks(wav, blocksize=SR, dtype="float64"):
-                tr = st.feed(block)
-                frames += _write_rows(fh, tr, header is None)
-                header = True
-            frames += _write_rows(fh, st.flush(), header is None)
-        el = time.perf_counter() - t0
-        rss1 = peak_rss_mb()
         audio_s = sf.info(wav).frames / SR
-        out["long"] = {"minutes": audio_s / 60.0, "wav_mb": size_mb, "frames": frames,
-                       "seconds": el, "rtf": el / audio_s, "peak_rss_mb_before": rss0,
-                       "peak_rss_mb_after": rss1, "csv_mb": csv_path.stat().st_size / 1e6}
-        print(f"\n{audio_s / 60:.1f} min WAV ({size_mb:.0f} MB) streamed in 1 s blocks: "
-              f"{frames} frames in {el:.1f} s (RTF {el / audio_s:.4f}); CSV "
-              f"{out['long']['csv_mb']:.0f} MB written as produced")
-        print(f"  peak RSS of this process: {rss0:.0f} MB before, {rss1:.0f} MB after "
-              f"(floor: < 400 MB)")
+        out["long"] = {"minutes": audio_s / 60.0, "wav_mb": size_mb}
+        print(f"\n{audio_s / 60:.1f} min WAV ({size_mb:.0f} MB), each run a fresh process:")
+        runs = (
+            ("cli_csv", [sys.executable, "-m", "harmtrack", "track", str(wav), "-o",
+                         str(Path(tmp) / "long.csv"), "-q"],
+             "harmtrack track long.wav -o long.csv (rows written as produced)"),
+            ("api_track_file", [sys.executable, "-c", TRACK_FILE_PROBE, str(wav)],
+             "harmtrack.track_file(long.wav) (a Track of every frame in memory)"),
+        )
+        for key, cmd, label in runs:
+            t0 = time.perf_counter()
+            p = subprocess.run(cmd, capture_output=True, text=True, env=_env())
+            el = time.perf_counter() - t0
+            if p.returncode != 0:
+                raise RuntimeError(f"{label} failed: {p.stderr.strip()[-300:]}")
+            rss = _child_peak_mb(p.stdout)
+            out["long"][key] = {"seconds": el, "rtf": el / audio_s, "peak_rss_mb": rss}
+            print(f"  {label}: {el:.1f} s (RTF {el / audio_s:.4f}), peak RSS {rss:.0f} MB "
+                  "(floor: < 400 MB)")
+
     y = recording(60.0, seed=0)
     harmtrack.track(y[:SR], SR)  # kernels loaded
     t0 = time.perf_counter()
@@ -135,18 +149,6 @@ def main(argv=None):
     if args.json:
         args.json.write_text(json.dumps(out, indent=1, default=float))
     return 0
-
-
-def _write_rows(fh, tr, header):
-    if not len(tr):
-        return 0
-    table = track_table(tr, validate=False)
-    names = list(table)
-    if header:
-        fh.write(",".join(names) + "\n")
-    cols = [np.asarray(table[n], dtype=np.float64) for n in names]
-    np.savetxt(fh, np.column_stack(cols), delimiter=",", fmt="%.6g")
-    return len(tr)
 
 
 if __name__ == "__main__":

@@ -70,8 +70,19 @@ def track_file(path: str | os.PathLike, preset: str = "voice", *, fmin=None, fma
 
     The returned track's ``settings`` also hold an ``"input"`` entry with the file's
     path, SHA-256, sample rate and channel count.
+
+    A long file (decoded samples above
+    :data:`harmtrack.file_stream.BLOCKS_ABOVE_BYTES`, about 10 minutes of mono
+    16 kHz audio) is read in blocks and tracked by the streaming engine
+    (:class:`harmtrack.stream.StreamTracker`, with 1 s of look-ahead), so only
+    the labels are held in memory; ``settings["read_in_blocks"]`` then says so.
     """
     cfg = make_config(preset, fmin_hz=fmin, fmax_hz=fmax, hop_s=hop_s, **options)
+    from .file_stream import needs_blocks, track_file_in_blocks
+
+    if needs_blocks(path):  # (the settings were checked above, before any reading)
+        return track_file_in_blocks(path, dict(preset=preset, fmin=fmin, fmax=fmax,
+                                               hop_s=hop_s, **options))
     y, sr, info = load(path)
     tr = run(y, sr, cfg, name=os.fspath(path))
     tr.settings["input"] = info.as_dict()

@@ -48,11 +48,7 @@ def load(path: str | os.PathLike) -> tuple[np.ndarray, float, AudioInfo]:
     InputError
         Missing, unreadable, truncated or empty file, or non-finite samples.
     """
-    path = os.fspath(path)
-    if not os.path.exists(path):
-        raise InputError(f"{path}: no such file")
-    if os.path.isdir(path):
-        raise InputError(f"{path}: is a folder, not an audio file")
+    path = check_audio_path(path)
     try:
         with open(path, "rb") as fh:
             raw = fh.read()
@@ -61,6 +57,16 @@ def load(path: str | os.PathLike) -> tuple[np.ndarray, float, AudioInfo]:
     except OSError as exc:
         raise InputError(f"{path}: cannot read: {exc.strerror or exc}") from None
     return decode(raw, name=path)
+
+
+def check_audio_path(path) -> str:
+    """``path`` as a string, once it names an existing file (else :class:`InputError`)."""
+    path = os.fspath(path)
+    if not os.path.exists(path):
+        raise InputError(f"{path}: no such file")
+    if os.path.isdir(path):
+        raise InputError(f"{path}: is a folder, not an audio file")
+    return path
 
 
 def decode(raw: bytes, *, name: str, sha256: str | None = None
@@ -104,14 +110,19 @@ def _plain(reason: str) -> str:
     return re.sub(r"<_io\.BytesIO object at 0x[0-9a-f]+>", "the file", reason)
 
 
-def _check_wav_size(name: str, raw: bytes, declared: int, channels: int, subtype: str) -> None:
-    """Detect a WAV whose data chunk is shorter than its header says."""
+def _check_wav_size(name: str, raw: bytes, declared: int, channels: int, subtype: str,
+                    size: int | None = None) -> None:
+    """Detect a WAV whose data chunk is shorter than its header says.
+
+    ``raw`` holds the file's bytes, or at least its chunk headers up to the data
+    chunk's, when ``size`` gives the file's length.
+    """
     width = {"PCM_U8": 1, "PCM_S8": 1, "PCM_16": 2, "PCM_24": 3, "PCM_32": 4}.get(subtype)
     if width is None or raw[:4] != b"RIFF" or raw[8:12] != b"WAVE":
         return
-    size = len(raw)
+    size = len(raw) if size is None else size
     pos = 12
-    while pos + 8 <= size:
+    while pos + 8 <= min(size, len(raw)):
         cid, clen = raw[pos:pos + 4], int.from_bytes(raw[pos + 4:pos + 8], "little")
         if cid == b"data":
             avail = size - (pos + 8)

@@ -291,12 +291,21 @@ def cmd_track(args) -> int:
     check_destination(args.output)
     _refuse_overwriting_input(source, args.output)
     start = time.perf_counter()
+    from .file_stream import needs_blocks, write_csv_in_blocks
+
+    options = _track_options(args)
     try:
-        tr = api.track_file(source, **_track_options(args))
+        if fmt == "csv" and needs_blocks(source):
+            # a long file: its rows are written as they are produced
+            tr, out = write_csv_in_blocks(source, args.output, options)
+        else:
+            tr = api.track_file(source, **options)
+            out = None
     except HarmtrackError as exc:
         raise _naming(exc, source) from None
     seconds = time.perf_counter() - start
-    out = labels.write_labels(tr, args.output, fmt=fmt)
+    if out is None:
+        out = labels.write_labels(tr, args.output, fmt=fmt)
     if not args.quiet:
         print(format_summary(tr, source=source, output=os.fspath(out), fmt=fmt, seconds=seconds))
     return EXIT_OK

@@ -67,7 +67,9 @@ class TrackerConfig:
         Typical speed of f0 movement in octaves per second (0.05 to 20) that the
         continuity prior treats as cheap; faster changes cost more.
     voiced_prior : float
-        Prior probability that a frame is voiced, in (0, 1).
+        Prior probability that a frame is voiced, in (0, 1), before its own
+        evidence.  Its log-odds count once per frame length, as the frames'
+        evidence does (overlapping frames share it).
     voiced_run_s : float
         Mean duration of voiced and of unvoiced stretches assumed by the smoother,
         seconds (0.005 to 10); it sets the voicing switch cost independent of the hop.
@@ -277,7 +279,7 @@ def _fast_length(n: int) -> int:
 PRESETS: dict[str, dict] = {
     # Speech: 50-800 Hz, 16 kHz analysis, ~50 ms frames.
     "voice": dict(fmin_hz=50.0, fmax_hz=800.0, analysis_sr=16000, search_sr=8000, max_harmonics=30,
-                  smoothing=1.0, glide_oct_s=0.5, voiced_run_s=0.15, voiced_prior=0.7),
+                  smoothing=1.0, glide_oct_s=0.5, voiced_run_s=0.15, voiced_prior=0.986),
     # Singing: wider and higher range, vibrato and portamento move faster.
     "singing": dict(fmin_hz=60.0, fmax_hz=1600.0, analysis_sr=22050, max_harmonics=30,
                     smoothing=1.0, glide_oct_s=1.5, voiced_run_s=0.4),

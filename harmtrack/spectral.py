@@ -25,6 +25,7 @@ __all__ = [
     "floor_from_spectra",
     "decimator_taps",
     "decimate",
+    "whiten_and_decimate",
     "fir_segment",
 ]
 
@@ -376,8 +377,35 @@ def decimate(y: np.ndarray, factor: int) -> np.ndarray:
     """
     if factor < 2:
         return y
-    full = prewhiten(np.ascontiguousarray(y, dtype=np.float64), decimator_taps(factor))
-    return np.ascontiguousarray(full[::factor])
+    y = np.ascontiguousarray(y, dtype=np.float64)
+    h = decimator_taps(factor)
+    if factor != 2:
+        return np.ascontiguousarray(prewhiten(y, h)[::factor])
+    return _decimate2(y, h)
+
+
+def _decimate2(y: np.ndarray, h: np.ndarray, nfft: int = 8192) -> np.ndarray:
+    """:func:`decimate` by 2 with FFT overlap-add, keeping only the even output
+    samples: each block's filtered spectrum is folded onto half the length, so
+    the inverse transform is half as long."""
+    n, L, d = y.size, h.size, h.size // 2
+    # one leading zero puts the zero-phase output sample 2m at the even index 2m + d + 1
+    lead = 1 if d % 2 else 0
+    x = np.concatenate([np.zeros(lead), y]) if lead else y
+    block = nfft - L + 1
+    block -= block % 2
+    H = np.fft.rfft(h, nfft)
+    half = nfft // 2
+    out = np.zeros((x.size + L) // 2 + 1)
+    for b0 in range(0, x.size, block):
+        Z = np.fft.rfft(x[b0:b0 + block], nfft) * H
+        # samples 2j of the block's output: the spectrum folded at half the length
+        Zd = 0.5 * (Z[:half // 2 + 1] + np.conj(Z[half:half // 2 - 1:-1]))
+        seg = np.fft.irfft(Zd, half)
+        m = min(half, (x.size - b0 + L) // 2 + 1)
+        out[b0 // 2:b0 // 2 + m] += seg[:m]
+    first = (d + lead) // 2
+    return np.ascontiguousarray(out[first:first + -(-n // 2)])
 
 
 def fir_segment(x: np.ndarray, x0: int, n_total: int | None, h: np.ndarray, lo: int, hi: int,
@@ -401,3 +429,52 @@ def fir_segment(x: np.ndarray, x0: int, n_total: int | None, h: np.ndarray, lo: 
         seg[s0 - a:s1 - a] = x[s0 - x0:s1 - x0]
     out = np.convolve(seg, h[::-1], mode="valid")  # out[j] = filtered sample lo + j
     return np.ascontiguousarray(out[::step])
+
+
+def whiten_and_decimate(y: np.ndarray, h: np.ndarray, nfft: int = 8192):
+    """``(prewhiten(y, h), decimate(prewhiten(y, h), 2))`` in one pass.
+
+    Each block's transform serves both outputs: multiplied by the whitening
+    filter's response for the first, by that and the decimator's, folded onto
+    half the length, for the second.  The decimated samples whose filter reaches
+    past either end of the signal are computed directly from the whitened
+    signal, so the result equals the two calls' up to rounding.
+    """
+    y = np.ascontiguousarray(y, dtype=np.float64)
+    g = decimator_taps(2)
+    n = y.size
+    hg = np.convolve(h, g)
+    Lh, L = h.size, hg.size
+    dh, d = Lh // 2, L // 2
+    if n < 4 * L or h.size % 2 == 0:
+        yw = prewhiten(y, h)
+        return yw, decimate(yw, 2)
+    lead = 1 if d % 2 else 0
+    x = np.concatenate([np.zeros(lead), y]) if lead else y
+    block = nfft - L + 1
+    block -= block % 2
+    H = np.fft.rfft(h, nfft)
+    HG = np.fft.rfft(hg, nfft)
+    half = nfft // 2
+    full_w = np.zeros(x.size + Lh)
+    out = np.zeros((x.size + L) // 2 + 1)
+    for b0 in range(0, x.size, block):
+        X = np.fft.rfft(x[b0:b0 + block], nfft)
+        seg_w = np.fft.irfft(X * H, nfft)
+        m = min(nfft, x.size + Lh - b0)
+        full_w[b0:b0 + m] += seg_w[:m]
+        Z = X * HG
+        Zd = 0.5 * (Z[:half // 2 + 1] + np.conj(Z[half:half // 2 - 1:-1]))
+        seg = np.fft.irfft(Zd, half)
+        m = min(half, (x.size - b0 + L) // 2 + 1)
+        out[b0 // 2:b0 // 2 + m] += seg[:m]
+    yw = np.ascontiguousarray(full_w[lead + dh:lead + dh + n])
+    first = (d + lead) // 2
+    ys = np.ascontiguousarray(out[first:first + -(-n // 2)])
+    # ends: the decimator must see the whitened signal cut at the ends, as decimate does
+    edge = g.size // 2 + dh
+    k0 = -(-edge // 2) + 1
+    ys[:k0] = fir_segment(yw, 0, n, g, 0, 2 * k0 - 1, 2)
+    k1 = max(k0, (n - edge) // 2 - 1)
+    ys[k1:] = fir_segment(yw, 0, n, g, 2 * k1, 2 * (ys.size - 1) + 1, 2)
+    return yw, ys

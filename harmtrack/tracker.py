@@ -145,11 +145,17 @@ def search_frames(ys: np.ndarray, rs: ResolvedConfig, idx: np.ndarray, noise_var
 
 
 def _emissions(cand_ev: np.ndarray, rc: ResolvedConfig) -> tuple[np.ndarray, np.ndarray]:
-    """Voiced and unvoiced emission log-potentials from the candidates' evidence."""
+    """Voiced and unvoiced emission log-potentials from the candidates' evidence.
+
+    Overlapping frames share their samples, so each frame's evidence, and the
+    prior odds, count for ``hop / frame`` of an independent observation: the
+    prior stands for one frame length of audio, whatever the hop, and can
+    never outweigh a frame length of evidence that a stretch holds only noise.
+    """
     cfg = rc.cfg
     weight = min(1.0, cfg.hop_s / cfg.auto_frame_s)
     prior = math.log(cfg.voiced_prior / (1.0 - cfg.voiced_prior))
-    ev = weight * (cand_ev - EVIDENCE_OFFSET) + prior
+    ev = weight * (cand_ev - EVIDENCE_OFFSET + prior)
     unv = np.zeros(cand_ev.shape[0])
     return ev, unv
 
@@ -216,7 +222,11 @@ def track_prepared(p: Prepared) -> Track:
     rc, ya, n_frames, sr = p.rc, p.ya, p.n_frames, p.sr
     cfg = rc.cfg
     yw = ya
+    ys = None
     gain = np.ones(2)
+    # The candidate search may run on a decimated copy (TrackerConfig.search_sr).
+    rs = rc.search()
+    factor = 1 if rs is rc else int(round(rc.sr / rs.sr))
     if cfg.prewhiten:
         # no zero-padding: the floor is smoothed over hundreds of hertz anyway
         floor, loud = spectral.noise_floor_psd(ya, rc.sr, frame_len=rc.frame_len,
@@ -225,11 +235,13 @@ def track_prepared(p: Prepared) -> Track:
         # recording holds nothing (digital silence, a band-limited channel).
         floor = floor + loud * 10.0 ** (-PREWHITEN_SNR_DB / 10.0)
         h = spectral.whitening_filter(floor, n_taps=WHITENING_TAPS)
-        yw = spectral.prewhiten(ya, h)
+        if factor == 2:  # one pass gives both (the usual voice and engine settings)
+            yw, ys = spectral.whiten_and_decimate(ya, h)
+        else:
+            yw = spectral.prewhiten(ya, h)
         gain = np.abs(np.fft.rfft(h, 1024))
-    # The candidate search may run on a decimated copy (TrackerConfig.search_sr).
-    rs = rc.search()
-    ys = yw if rs is rc else spectral.decimate(yw, int(round(rc.sr / rs.sr)))
+    if ys is None:
+        ys = yw if rs is rc else spectral.decimate(yw, factor)
     noise_var = np.full(n_frames, _noise_floor_var(ya))
     cand_lf, cand_ev, cand_order = search_frames(ys, rs, np.arange(n_frames), noise_var)
     em_v, em_u = _emissions(cand_ev, rc)

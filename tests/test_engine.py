@@ -209,3 +209,18 @@ def test_engine_labels_round_trip_in_every_format(tmp_path):
     np.testing.assert_array_equal(back["npz"]["uneven_flag"], tr.uneven_flag)
     np.testing.assert_allclose(back["csv"]["rpm"], tr.rpm, atol=0.005)
     np.testing.assert_allclose(back["csv"]["order_2_db"], back["npz"]["order_2_db"], atol=0.005)
+
+
+@pytest.mark.parametrize("cyl", [4, 6])
+def test_no_engine_heard_in_noise_or_silence(cyl):
+    # Noise alone, and digital silence after an engine stops, must not read as an
+    # engine: the voicing prior counts once per frame length, like the evidence.
+    rng = np.random.default_rng(cyl)
+    noise = 0.05 * rng.standard_normal(4 * SR)
+    tr = harmtrack.track(noise, SR, preset="engine", cylinders=cyl, rpm_min=200, rpm_max=2000)
+    assert np.mean(tr.voiced) <= 0.02
+    y, _ = _engine(cyl, kind="steady", rpm=1500.0, dur=3.0)
+    y = np.concatenate([y, np.zeros(4 * SR)])
+    tr = harmtrack.track(y, SR, preset="engine", cylinders=cyl, rpm_min=800, rpm_max=4000)
+    assert np.mean(tr.voiced[:250]) >= 0.95
+    assert np.mean(tr.voiced[350:]) <= 0.02

@@ -23,7 +23,7 @@ from ..errors import HarmtrackError
 from .columns import column_format, table_columns
 from .provenance import dumps_compact
 
-__all__ = ["encode", "decode", "PROVENANCE_PREFIX"]
+__all__ = ["encode", "encode_head", "encode_rows", "decode", "PROVENANCE_PREFIX"]
 
 #: Start of the comment line that carries the provenance record.
 PROVENANCE_PREFIX = "# provenance: "
@@ -46,24 +46,33 @@ def _units_line(n_harmonics: int, engine: bool = False) -> str:
 
 def encode(table: dict, provenance: dict) -> bytes:
     """CSV bytes of a checked table (see :func:`harmtrack.io.columns.check_table`)."""
+    return (encode_head(table, provenance) + encode_rows(table)).encode("utf-8")
+
+
+def encode_head(table: dict, provenance: dict) -> str:
+    """The comment lines and the header row (what precedes the rows), as text."""
     n_h = table["harmonic_amplitudes"].shape[1]
-    names = table_columns(table)
-    cells = []
-    for name in names:
-        fmt = column_format(name)
-        values = table[name]
-        if fmt == "%d":
-            values = values.astype(np.int64)
-        cells.append([fmt % v for v in values.tolist()])
     head = [
         f"# {provenance.get('tool', 'harmtrack')} {provenance.get('version', '')} "
         "f0 and harmonic-amplitude labels",
         PROVENANCE_PREFIX + dumps_compact(provenance),
         _units_line(n_h, engine="rpm" in table),
-        ",".join(names),
+        ",".join(table_columns(table)),
     ]
-    rows = [",".join(row) for row in zip(*cells)]
-    return ("\n".join(head + rows) + "\n").encode("utf-8")
+    return "\n".join(head) + "\n"
+
+
+def encode_rows(table: dict) -> str:
+    """The rows of a table, one line each, as text (so a long file can be
+    written part by part: the head, then the rows of each part)."""
+    cells = []
+    for name in table_columns(table):
+        fmt = column_format(name)
+        values = table[name]
+        if fmt == "%d":
+            values = values.astype(np.int64)
+        cells.append([fmt % v for v in values.tolist()])
+    return "".join(",".join(row) + "\n" for row in zip(*cells))
 
 
 def decode(data: bytes, *, name: str) -> tuple[dict, dict]:

@@ -1,0 +1,281 @@
+"""Long recordings: read in blocks and tracked by the streaming engine, in bounded memory.
+
+A file whose decoded samples would take more than :data:`BLOCKS_ABOVE_BYTES`
+is not loaded whole: :func:`track_file_blocks` reads it in blocks of
+:data:`BLOCK_S` with soundfile, feeds a :class:`harmtrack.stream.StreamTracker`
+(with :data:`FILE_LAG_S` of look-ahead: a file has no hurry) and hands each
+finished part to the caller, who writes it as it comes
+(:class:`CsvLabelStream`) or gathers it into preallocated arrays
+(:func:`track_file_in_blocks`).  The input's SHA-256 is computed over its bytes
+first, so that the provenance, which heads a CSV file, is complete.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import os
+import tempfile
+from pathlib import Path
+
+import numpy as np
+
+from .audio import AudioInfo
+from .errors import HarmtrackError, InputError
+from .result import Track
+
+__all__ = ["BLOCKS_ABOVE_BYTES", "BLOCK_S", "FILE_LAG_S", "needs_blocks", "file_info",
+           "iter_file_parts", "track_file_in_blocks", "write_csv_in_blocks", "CsvLabelStream"]
+
+#: Files whose decoded float64 samples exceed this many bytes are read in blocks
+#: (80 MB: about 10 minutes of mono audio at 16 kHz).
+BLOCKS_ABOVE_BYTES = 80e6
+
+#: Block length read at a time, seconds.
+BLOCK_S = 1.0
+
+#: Look-ahead of the smoother for files, seconds.
+FILE_LAG_S = 1.0
+
+
+def _sha256(path: str) -> str:
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        while chunk := fh.read(1 << 22):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def file_info(path) -> AudioInfo:
+    """What the file's header says, and the SHA-256 of its bytes.
+
+    Raises
+    ------
+    InputError
+        Missing, unreadable, empty or undecodable file.
+    """
+    import soundfile as sf
+
+    from .audio import check_audio_path
+
+    path = check_audio_path(path)
+    try:
+        if os.path.getsize(path) == 0:
+            raise InputError(f"{path}: empty file (0 bytes)")
+        info = sf.info(path)
+        digest = _sha256(path)
+    except PermissionError:
+        raise InputError(f"{path}: permission denied") from None
+    except (sf.LibsndfileError, RuntimeError, TypeError) as exc:
+        reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise InputError(f"{path}: not a readable audio file ({reason})") from None
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read: {exc.strerror or exc}") from None
+    if info.frames <= 0:
+        raise InputError(f"{path}: contains no audio samples")
+    if info.format == "WAV" and info.subtype.startswith("PCM"):
+        from .audio import _check_wav_size
+
+        with open(path, "rb") as fh:
+            head = fh.read(1 << 20)
+        _check_wav_size(path, head, info.frames, info.channels, info.subtype,
+                        size=os.path.getsize(path))
+    return AudioInfo(path=path, sr=float(info.samplerate), channels=int(info.channels),
+                     frames=int(info.frames), format=info.format, subtype=info.subtype,
+                     sha256=digest)
+
+
+def needs_blocks(path) -> bool:
+    """True when the file is long enough to be read in blocks (see :data:`BLOCKS_ABOVE_BYTES`).
+
+    False for anything soundfile cannot open (the whole-file reader then reports it).
+    """
+    import soundfile as sf
+
+    try:
+        info = sf.info(os.fspath(path))
+    except Exception:  # noqa: BLE001 - reported by the caller's normal path
+        return False
+    return info.frames * info.channels * 8.0 > BLOCKS_ABOVE_BYTES
+
+
+def iter_file_parts(path, info: AudioInfo, cfg_options: dict):
+    """The frames of a file, part by part, from a stream of blocks.
+
+    ``cfg_options`` are :func:`harmtrack.track` keywords (preset included).
+
+    Raises
+    ------
+    InputError
+        A non-finite sample, or a file that ends before its header says.
+    """
+    import soundfile as sf
+
+    from .stream import StreamTracker
+
+    name = info.path
+    st = StreamTracker(info.sr, lag_s=FILE_LAG_S, **cfg_options)
+    block = max(1, int(BLOCK_S * info.sr))
+    n = 0
+    warned = False
+    try:
+        with sf.SoundFile(name) as f:
+            while True:
+                data = f.read(block, dtype="float64", always_2d=True)
+                if data.shape[0] == 0:
+                    break
+                if data.shape[1] > 1:
+                    if not warned:
+                        from .errors import warn
+
+                        warn(f"{name}: {data.shape[1]} channels mixed down to mono")
+                        warned = True
+                    x = data.mean(axis=1)
+                else:
+                    x = data[:, 0]
+                if not np.all(np.isfinite(x)):
+                    bad = n + int(np.argmax(~np.isfinite(x)))
+                    raise InputError(f"{name}: non-finite sample (NaN or inf) at "
+                                     f"{bad / info.sr:.3f} s")
+                n += x.size
+                yield st.feed(np.ascontiguousarray(x))
+    except (sf.LibsndfileError, RuntimeError) as exc:
+        reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+        raise InputError(f"{name}: not a readable audio file ({reason})") from None
+    if n < info.frames:
+        raise InputError(f"{name}: truncated audio file ({n} of {info.frames} declared samples "
+                         "readable)")
+    yield st.flush()
+
+
+def _stream_settings(cfg_options: dict, info: AudioInfo) -> dict:
+    from .config import make_config
+
+    opts = dict(cfg_options)
+    preset = opts.pop("preset", "voice")
+    cfg = make_config(preset, fmin_hz=opts.pop("fmin", None), fmax_hz=opts.pop("fmax", None),
+                      **opts)
+    settings = cfg.as_dict()
+    settings["read_in_blocks"] = {"block_s": BLOCK_S, "lag_s": FILE_LAG_S}
+    settings["input"] = info.as_dict()
+    return settings
+
+
+def track_file_in_blocks(path, cfg_options: dict) -> Track:
+    """:func:`harmtrack.track_file` for a long file: the frames are gathered into
+    arrays allocated once for the whole file (no copy of the audio is held)."""
+    from . import spectral
+
+    info = file_info(path)
+    settings = _stream_settings(cfg_options, info)
+    T = spectral.frame_count(info.frames, settings["hop_s"] * info.sr)
+    out = None
+    i = 0
+    for part in iter_file_parts(path, info, cfg_options):
+        if out is None:
+            out = _allocate(part, T)
+        k = len(part)
+        for f in dataclasses.fields(Track):
+            v = getattr(part, f.name)
+            if isinstance(v, np.ndarray) and f.name != "order_numbers":
+                out[f.name][i:i + k] = v
+        i += k
+    kw = {name: arr[:i] for name, arr in out.items()}
+    first = part
+    return Track(**kw, sr=first.sr, frame_s=first.frame_s, settings=settings,
+                 order_numbers=first.order_numbers)
+
+
+def _allocate(part: Track, T: int) -> dict:
+    out = {}
+    for f in dataclasses.fields(Track):
+        v = getattr(part, f.name)
+        if isinstance(v, np.ndarray) and f.name != "order_numbers":
+            out[f.name] = np.empty((T,) + v.shape[1:], dtype=v.dtype)
+    return out
+
+
+class CsvLabelStream:
+    """A CSV label file written part by part into a temporary file, put in place
+    (renamed) only when complete; the bytes equal those of
+    :func:`harmtrack.io.write_labels` for the same frames and provenance."""
+
+    def __init__(self, path):
+        from .io.atomic import check_destination
+
+        self.path = check_destination(path)
+        fd, self._tmp = tempfile.mkstemp(dir=self.path.parent, prefix=f".{self.path.name}.",
+                                         suffix=".tmp")
+        self._fh = os.fdopen(fd, "w", encoding="utf-8", newline="")
+        self._head = False
+        self.frames = 0
+
+    def write(self, part: Track, provenance: dict) -> None:
+        from .io import csv_format
+        from .io.columns import track_table
+
+        if not len(part):
+            return
+        table = track_table(part, validate=False)
+        try:
+            if not self._head:
+                self._fh.write(csv_format.encode_head(table, provenance))
+                self._head = True
+            self._fh.write(csv_format.encode_rows(table))
+        except OSError as exc:
+            self.abort()
+            raise HarmtrackError(f"{self.path}: cannot write: {exc.strerror or exc}") from None
+        self.frames += len(part)
+
+    def close(self) -> Path:
+        try:
+            self._fh.flush()
+            os.fsync(self._fh.fileno())
+            self._fh.close()
+            os.chmod(self._tmp, 0o644)
+            os.replace(self._tmp, self.path)
+        except OSError as exc:
+            self.abort()
+            raise HarmtrackError(f"{self.path}: cannot write: {exc.strerror or exc}") from None
+        return self.path
+
+    def abort(self) -> None:
+        try:
+            self._fh.close()
+        except OSError:
+            pass
+        try:
+            os.unlink(self._tmp)
+        except OSError:
+            pass
+
+
+def write_csv_in_blocks(path_in, path_out, cfg_options: dict) -> tuple[Track, Path]:
+    """Track a long file and write its CSV labels as they are produced.
+
+    Returns the track without its harmonic amplitudes (for a summary: the
+    amplitudes, the bulk of the labels, are never held whole in memory) and the
+    written path.
+    """
+    from .io.provenance import make_provenance
+    from .stream import concat_tracks
+
+    info = file_info(path_in)
+    settings = _stream_settings(cfg_options, info)
+    sink = CsvLabelStream(path_out)
+    prov = None
+    kept = []
+    try:
+        for part in iter_file_parts(path_in, info, cfg_options):
+            if not len(part):
+                continue
+            part = dataclasses.replace(part, settings=settings)
+            if prov is None:
+                prov = make_provenance(part)
+            sink.write(part, prov)
+            kept.append(dataclasses.replace(
+                part, harmonic_amplitudes=part.harmonic_amplitudes[:, :0]))
+    except BaseException:
+        sink.abort()
+        raise
+    return concat_tracks(kept), sink.close()
