@@ -255,11 +255,21 @@ def noise_floor_psd(
     return floor_from_spectra(ps, sr, nfft=nfft, time_quantile=time_quantile, smooth_hz=smooth_hz)
 
 
+#: Frames this far below the loudest (dB of frame power) count as digital silence
+#: for the noise floor (16-bit quantisation noise lies about 100 dB below full scale).
+SILENT_DB = 100.0
+
+
 def floor_from_spectra(ps: np.ndarray, sr: float, *, nfft: int, time_quantile: float = 0.2,
                        smooth_hz: float = 400.0) -> tuple[np.ndarray, np.ndarray]:
     """The noise floor and loud-frame spectrum of :func:`noise_floor_psd` from the
     power spectra ``ps`` (F, nfft // 2 + 1) of the frames it picked."""
     tot = ps.sum(axis=1)
+    # Digital silence (a muted start, zero padding) is no noise floor: frames more
+    # than SILENT_DB below the loudest are left out, when any other remains.
+    heard = tot > tot.max() * 10.0 ** (-SILENT_DB / 10.0)
+    if np.any(heard) and not np.all(heard):
+        ps, tot = ps[heard], tot[heard]
     loud = ps[tot >= _low_order_stat(tot, 0.8, axis=0)].mean(axis=0)
     floor = _low_order_stat(ps, time_quantile, axis=0)
     # The running quantile over frequency works on every step-th bin (a few bins

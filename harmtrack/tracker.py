@@ -112,9 +112,17 @@ def _analyzer_cached(rc: ResolvedConfig) -> Analyzer:
                     norm=2.0 / w.sum(), n_eff=w.sum() ** 2 / np.sum(w**2))
 
 
+#: The least peak assumed for :func:`noise_var_of_peak`: one step of 16-bit audio
+#: (common practice), so that digital silence, before anything louder has been
+#: heard, still counts as noise and never as a perfectly fitting harmonic source.
+MIN_PEAK = 2.0 ** -15
+
+
 def noise_var_of_peak(peak):
-    """Noise power per sample at :data:`NOISE_FLOOR_DB` below a signal peak ``peak``."""
-    return (np.asarray(peak, dtype=np.float64) * 10.0 ** (-NOISE_FLOOR_DB / 20.0)) ** 2
+    """Noise power per sample at :data:`NOISE_FLOOR_DB` below a signal peak ``peak``
+    (at least :data:`MIN_PEAK`)."""
+    peak = np.maximum(np.asarray(peak, dtype=np.float64), MIN_PEAK)
+    return (peak * 10.0 ** (-NOISE_FLOOR_DB / 20.0)) ** 2
 
 
 def _noise_floor_var(y: np.ndarray) -> float:

@@ -187,3 +187,15 @@ def test_decimator_meets_its_design_and_the_one_pass_form_equals_two_steps():
         pieces = [spectral.fir_segment(yw0, 0, n, h, lo, min(lo + 2000, 2 * ys.size - 1), 2)
                   for lo in range(0, 2 * ys.size - 1, 2000)]
         np.testing.assert_allclose(np.concatenate(pieces), ys, atol=1e-12)
+
+
+def test_digital_silence_is_unvoiced_offline_and_streamed():
+    # A muted start and zero padding at the end: nothing voiced there, and the
+    # silence does not count as the recording's noise floor.
+    y0 = synth.speakers_recording(4.0, seed=8, snr_db=30.0)
+    y = np.concatenate([np.zeros(SR), y0, np.zeros(SR)])
+    off = harmtrack.track(y, SR)
+    tr, _ = _stream(y, SR, 800)
+    for t in (off, tr):
+        assert not np.any(t.voiced[:95]) and not np.any(t.voiced[-95:])
+        assert np.mean(t.voiced[100:500]) > 0.5
