@@ -13,8 +13,8 @@ Run from the repository root::
   a 16 kHz 16-bit WAV, then tracked in a fresh process by
   ``harmtrack track long.wav -o long.csv`` (read in blocks, rows written as
   produced) and by ``harmtrack.track_file`` (read in blocks, every frame kept);
-  the peak resident memory of each (the first child's is the largest of the
-  children at that point, which is the CLI's).
+  the peak resident memory of each process (from ``wait4``); also the command
+  writing NPZ and JSON labels (spooled to disk, encoded at the end).
 
 A report run by hand, not a test.
 """
@@ -24,7 +24,6 @@ import _single_thread  # noqa: F401, I001  (first: one thread before numpy loads
 import argparse
 import json
 import os
-import resource
 import subprocess
 import sys
 import tempfile
@@ -47,12 +46,11 @@ def recording(total_s, seed=0, snr_db=20.0):
 
 
 TRACK_FILE_PROBE = r"""
-import resource, sys
+import sys
 import harmtrack
 tr = harmtrack.track_file(sys.argv[1])
 assert "read_in_blocks" in tr.settings, "not read in blocks"
 print(len(tr))
-print("PEAK_KB", resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)
 """
 
 
@@ -63,12 +61,14 @@ def _env():
     return env
 
 
-def _child_peak_mb(stdout: str) -> float:
-    """Peak RSS of the child: its own report, else the largest child's so far."""
-    for line in stdout.splitlines():
-        if line.startswith("PEAK_KB"):
-            return int(line.split()[1]) / 1024.0
-    return resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss / 1024.0
+def _run_measured(cmd):
+    """Run ``cmd`` to its end; (exit status, its own peak RSS in MB, its stderr)."""
+    with tempfile.TemporaryFile(mode="w+") as err:
+        proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=err, env=_env())
+        _, status, usage = os.wait4(proc.pid, 0)
+        proc.returncode = os.waitstatus_to_exitcode(status)
+        err.seek(0)
+        return proc.returncode, usage.ru_maxrss / 1024.0, err.read()
 
 
 def agree(a, b):
@@ -101,16 +101,21 @@ def main(argv=None):
             ("cli_csv", [sys.executable, "-m", "harmtrack", "track", str(wav), "-o",
                          str(Path(tmp) / "long.csv"), "-q"],
              "harmtrack track long.wav -o long.csv (rows written as produced)"),
+            ("cli_npz", [sys.executable, "-m", "harmtrack", "track", str(wav), "-o",
+                         str(Path(tmp) / "long.npz"), "-q"],
+             "harmtrack track long.wav -o long.npz (spooled to disk, encoded at the end)"),
+            ("cli_json", [sys.executable, "-m", "harmtrack", "track", str(wav), "-o",
+                          str(Path(tmp) / "long.json"), "-q"],
+             "harmtrack track long.wav -o long.json (spooled to disk, encoded at the end)"),
             ("api_track_file", [sys.executable, "-c", TRACK_FILE_PROBE, str(wav)],
              "harmtrack.track_file(long.wav) (a Track of every frame in memory)"),
         )
         for key, cmd, label in runs:
             t0 = time.perf_counter()
-            p = subprocess.run(cmd, capture_output=True, text=True, env=_env())
+            status, rss, err = _run_measured(cmd)
             el = time.perf_counter() - t0
-            if p.returncode != 0:
-                raise RuntimeError(f"{label} failed: {p.stderr.strip()[-300:]}")
-            rss = _child_peak_mb(p.stdout)
+            if status != 0:
+                raise RuntimeError(f"{label} failed: {err.strip()[-300:]}")
             out["long"][key] = {"seconds": el, "rtf": el / audio_s, "peak_rss_mb": rss}
             print(f"  {label}: {el:.1f} s (RTF {el / audio_s:.4f}), peak RSS {rss:.0f} MB "
                   "(floor: < 400 MB)")

@@ -1,4 +1,4 @@
-"""Command-line interface: ``harmtrack track``, ``batch``, ``demo``, ``live`` and ``devices``.
+"""Command-line interface: ``harmtrack track``, ``batch``, ``score``, ``demo``, ``live``, ``devices``.
 
 The commands parse options, call the public API, write label files and
 report; they do no signal processing of their own.  Heavy modules are
@@ -148,6 +148,28 @@ def build_parser() -> argparse.ArgumentParser:
                         f"(default: ./{DEFAULT_DEMO_DIR})")
     d.set_defaults(func=cmd_demo)
 
+    s = sub.add_parser(
+        "score", parents=[common], help="score f0 labels against reference f0 files",
+        description="Score estimated f0 labels (harmtrack CSV, NPZ or JSON, or plain time/f0 "
+                    "text) against references (time/f0 text, 0 or nan = unvoiced): one pair of "
+                    "files, or two folders whose files are matched by name. Raw pitch and chroma "
+                    "accuracy, gross and fine pitch error, voicing decision error, recall and "
+                    "false alarm, per file and pooled.",
+    )
+    s.add_argument("estimate", metavar="EST", help="estimated labels: a file or a folder")
+    s.add_argument("reference", metavar="REF", help="reference f0: a file or a folder")
+    s.add_argument("--csv", metavar="OUT", help="also write the scores to this CSV file")
+    s.add_argument("--json", metavar="OUT", help="also write the scores to this JSON file")
+    s.add_argument("--method", choices=("nearest", "linear"), default="nearest",
+                   help="how the estimate is put on the reference's times: the nearest frame "
+                        "within half a hop (default) or interpolation inside voiced stretches")
+    s.add_argument("--cents", type=float, default=50.0, metavar="C",
+                   help="largest error of a raw pitch or chroma hit, cents (default 50)")
+    s.add_argument("--gross", type=float, default=0.2, metavar="R",
+                   help="relative error above which a frame is a gross error (default 0.2)")
+    s.add_argument("-q", "--quiet", action="store_true", help="print no table")
+    s.set_defaults(func=cmd_score)
+
     from . import live  # light at import: the capture modules load inside its commands
 
     live.add_commands(sub, common=common, analysis=analysis)
@@ -291,13 +313,13 @@ def cmd_track(args) -> int:
     check_destination(args.output)
     _refuse_overwriting_input(source, args.output)
     start = time.perf_counter()
-    from .file_stream import needs_blocks, write_csv_in_blocks
+    from .file_stream import needs_blocks, write_labels_in_blocks
 
     options = _track_options(args)
     try:
-        if fmt == "csv" and needs_blocks(source):
-            # a long file: its rows are written as they are produced
-            tr, out = write_csv_in_blocks(source, args.output, options)
+        if needs_blocks(source):
+            # a long file: its labels are written (CSV) or spooled (NPZ, JSON) as produced
+            tr, out = write_labels_in_blocks(source, args.output, options, fmt=fmt)
         else:
             tr = api.track_file(source, **options)
             out = None
@@ -365,6 +387,34 @@ def cmd_batch(args) -> int:
         if rec and rec["status"] == "failed":
             print(f"{PROG}: failed: {rec['name']}: {rec['error']}", file=sys.stderr)
     return EXIT_USAGE if rep.failed else EXIT_OK
+
+
+def cmd_score(args) -> int:
+    """``harmtrack score EST REF``."""
+    from . import scoring
+    from .io.atomic import atomic_write_bytes, check_destination
+
+    for out in (args.csv, args.json):
+        if out is not None:
+            check_destination(out)
+    pairs, est_only, ref_only = scoring.match_pairs(args.estimate, args.reference)
+    rows = scoring.score_pairs(pairs, method=args.method, cent_tolerance=args.cents,
+                               gross_tolerance=args.gross)
+    settings = {"method": args.method, "cent_tolerance": args.cents,
+                "gross_tolerance": args.gross, "estimate": args.estimate,
+                "reference": args.reference}
+    if args.csv:
+        atomic_write_bytes(args.csv, scoring.encode_csv(rows))
+    if args.json:
+        atomic_write_bytes(args.json, scoring.encode_json(rows, settings=settings))
+    if not args.quiet:
+        print(scoring.format_table(rows))
+    for what, names in (("estimate", est_only), ("reference", ref_only)):
+        if names:
+            shown = ", ".join(names[:5]) + (" ..." if len(names) > 5 else "")
+            print(f"{PROG}: note: {len(names)} {what} file(s) without a partner, not scored: "
+                  f"{shown}", file=sys.stderr)
+    return EXIT_OK
 
 
 def _refuse_overwriting_input(source: str, output: str) -> None:
@@ -511,7 +561,8 @@ def main(argv: list[str] | None = None) -> int:
         return exc.code if isinstance(exc.code, int) else EXIT_USAGE
     if args.func is None:
         parser.print_usage(sys.stderr)
-        print(f"{PROG}: error: a command is required (track, batch, demo, live or devices)",
+        print(f"{PROG}: error: a command is required (track, batch, score, demo, live or "
+              "devices)",
               file=sys.stderr)
         return EXIT_USAGE
     from .errors import HarmtrackWarning

@@ -25,7 +25,8 @@ from .errors import HarmtrackError, InputError
 from .result import Track
 
 __all__ = ["BLOCKS_ABOVE_BYTES", "BLOCK_S", "FILE_LAG_S", "needs_blocks", "file_info",
-           "iter_file_parts", "track_file_in_blocks", "write_csv_in_blocks", "CsvLabelStream"]
+           "iter_file_parts", "track_file_in_blocks", "write_csv_in_blocks",
+           "write_labels_in_blocks", "CsvLabelStream"]
 
 #: Files whose decoded float64 samples exceed this many bytes are read in blocks
 #: (80 MB: about 10 minutes of mono audio at 16 kHz).
@@ -248,6 +249,120 @@ class CsvLabelStream:
             os.unlink(self._tmp)
         except OSError:
             pass
+
+
+#: Track fields gathered frame by frame (the rest are the same for every part).
+_FRAME_FIELDS = ("times", "f0_hz", "voiced", "voicing_prob", "harmonic_amplitudes",
+                 "model_order", "hnr_db", "rpm", "order_amplitudes", "uneven_db", "uneven_flag")
+
+
+class _Spool:
+    """The frames of a long track on disk, one raw file per field, next to the
+    output (its folder), read back memory-mapped to encode NPZ or JSON labels
+    without holding them in memory."""
+
+    def __init__(self, dest: Path):
+        self.dir = Path(tempfile.mkdtemp(dir=dest.parent, prefix=f".{dest.name}.",
+                                         suffix=".spool.tmp"))
+        self.files: dict = {}
+        self.meta: dict = {}
+        self.n = 0
+        self.first = None
+
+    def add(self, part: Track) -> None:
+        if self.first is None:
+            self.first = part
+        for name in _FRAME_FIELDS:
+            v = getattr(part, name)
+            if v is None:
+                continue
+            v = np.ascontiguousarray(v)
+            if name not in self.files:
+                self.files[name] = open(self.dir / name, "wb")
+                self.meta[name] = (v.dtype, v.shape[1:])
+            self.files[name].write(v.tobytes())
+        self.n += len(part)
+
+    def track(self, settings: dict) -> Track:
+        for fh in self.files.values():
+            fh.close()
+        kw = {}
+        for name, (dtype, tail) in self.meta.items():
+            shape = (self.n,) + tail
+            if self.n and int(np.prod(shape)):
+                kw[name] = np.memmap(self.dir / name, dtype=dtype, mode="r", shape=shape)
+            else:
+                kw[name] = np.zeros(shape, dtype=dtype)
+        f = self.first
+        return Track(**kw, sr=f.sr, frame_s=f.frame_s, settings=settings,
+                     order_numbers=f.order_numbers)
+
+    def remove(self) -> None:
+        for fh in self.files.values():
+            fh.close()
+        for q in self.dir.iterdir():
+            q.unlink()
+        self.dir.rmdir()
+
+
+def write_labels_in_blocks(path_in, path_out, cfg_options: dict, *, fmt: str
+                           ) -> tuple[Track, Path]:
+    """Track a long file and write its labels without holding them in memory.
+
+    CSV rows are written as they are produced.  NPZ and JSON hold one column
+    (or array) after another, so their frames are spooled to disk as they are
+    produced and encoded at the end, from memory-mapped arrays.  Either way the
+    output appears (by renaming) only when complete, and the bytes equal those
+    of :func:`harmtrack.io.write_labels` for the same frames.
+
+    Returns the track without its harmonic amplitudes (for a summary) and the
+    written path.
+    """
+    if fmt == "csv":
+        return write_csv_in_blocks(path_in, path_out, cfg_options)
+    from .io import json_format, npz_format
+    from .io.atomic import check_destination
+    from .io.columns import track_table
+    from .io.provenance import make_provenance
+
+    dest = check_destination(path_out)
+    info = file_info(path_in)
+    settings = _stream_settings(cfg_options, info)
+    spool = _Spool(dest)
+    try:
+        for part in iter_file_parts(path_in, info, cfg_options):
+            if len(part):
+                spool.add(part)
+        tr = spool.track(settings)
+        table, prov = track_table(tr, validate=False), make_provenance(tr)
+        fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=f".{dest.name}.", suffix=".tmp")
+        try:
+            if fmt == "npz":
+                with os.fdopen(fd, "w+b") as fh:
+                    npz_format.write(fh, table, prov)
+                    fh.flush()
+                    os.fsync(fh.fileno())
+            else:
+                with os.fdopen(fd, "w", encoding="ascii", newline="") as fh:
+                    json_format.write(fh, table, prov)
+                    fh.flush()
+                    os.fsync(fh.fileno())
+            os.chmod(tmp, 0o644)
+            os.replace(tmp, dest)
+        except OSError as exc:
+            raise HarmtrackError(f"{dest}: cannot write: {exc.strerror or exc}") from None
+        finally:
+            if os.path.exists(tmp):
+                os.unlink(tmp)
+        # what the summary needs, in memory (the spool files go now)
+        copies = {k: np.array(v) for k in _FRAME_FIELDS
+                  if k != "harmonic_amplitudes" and (v := getattr(tr, k)) is not None}
+        summary = dataclasses.replace(tr, harmonic_amplitudes=np.zeros((tr.times.size, 0)),
+                                      **copies)
+        del table, tr
+    finally:
+        spool.remove()
+    return summary, dest
 
 
 def write_csv_in_blocks(path_in, path_out, cfg_options: dict) -> tuple[Track, Path]:

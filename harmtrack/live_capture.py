@@ -48,6 +48,9 @@ STALL_S = 2.0
 OVERFLOW_STORM = 20
 OVERFLOW_WINDOW_S = 5.0
 
+#: Seconds the capture waits for PortAudio to stop and close the stream.
+CLOSE_WAIT_S = 3.0
+
 #: Most audio, seconds, waiting between the callback and the tracker; blocks
 #: beyond it are dropped and counted as overflows.
 MAX_QUEUED_S = 120.0
@@ -403,14 +406,26 @@ class Capture:
         self._close_quietly()
 
     def _close_quietly(self) -> None:
+        """Abort and close the stream, waiting at most :data:`CLOSE_WAIT_S`.
+
+        A lost device can leave PortAudio's stop or close waiting for a read that
+        never returns; they run on a thread of their own, which is abandoned
+        (the process can still end) when they do not return in time.
+        """
         stream, self.stream = self.stream, None
         if stream is None:
             return
-        for method in (stream.stop, stream.close):
-            try:
-                method()
-            except Exception:  # noqa: BLE001 - a lost device may fail to stop; nothing to keep
-                pass
+
+        def close():
+            for method in (stream.abort, stream.close):
+                try:
+                    method()
+                except Exception:  # noqa: BLE001 - a lost device may fail to stop
+                    pass
+
+        t = threading.Thread(target=close, name="harmtrack-capture-close", daemon=True)
+        t.start()
+        t.join(CLOSE_WAIT_S)
 
 
 @contextlib.contextmanager

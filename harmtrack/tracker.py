@@ -118,6 +118,28 @@ def _analyzer_cached(rc: ResolvedConfig) -> Analyzer:
 MIN_PEAK = 2.0 ** -15
 
 
+#: Engines: the noise floor is read from frames of at least this many periods of
+#: the lowest firing frequency.  An engine is a steady comb of lines that the
+#: floor's low quantile over time keeps; with frames this long the lines are
+#: narrow next to their spacing, and the quantile over frequency steps between them.
+ENGINE_FLOOR_PERIODS = 10.0
+
+
+def floor_frame_len(rc: ResolvedConfig) -> int:
+    """Length of the frames the noise floor is estimated from (samples, even)."""
+    n = rc.frame_len
+    if rc.cfg.is_engine:
+        n = max(n, int(round(ENGINE_FLOOR_PERIODS / rc.cfg.fmin_hz * rc.sr)))
+        n += n % 2
+    return n
+
+
+def _regrid(spec: np.ndarray, size: int) -> np.ndarray:
+    """A power spectrum on ``size`` bins over the same 0 to Nyquist band (linear
+    interpolation; the floor is smooth, so nothing is lost)."""
+    return np.interp(np.linspace(0.0, 1.0, size), np.linspace(0.0, 1.0, spec.size), spec)
+
+
 def noise_var_of_peak(peak):
     """Noise power per sample at :data:`NOISE_FLOOR_DB` below a signal peak ``peak``
     (at least :data:`MIN_PEAK`)."""
@@ -237,8 +259,11 @@ def track_prepared(p: Prepared) -> Track:
     factor = 1 if rs is rc else int(round(rc.sr / rs.sr))
     if cfg.prewhiten:
         # no zero-padding: the floor is smoothed over hundreds of hertz anyway
-        floor, loud = spectral.noise_floor_psd(ya, rc.sr, frame_len=rc.frame_len,
-                                               nfft=rc.frame_len)
+        n_floor = floor_frame_len(rc)
+        floor, loud = spectral.noise_floor_psd(ya, rc.sr, frame_len=n_floor, nfft=n_floor)
+        if n_floor != rc.frame_len:  # back on the frames' frequency grid
+            floor = _regrid(floor, rc.frame_len // 2 + 1)
+            loud = _regrid(loud, rc.frame_len // 2 + 1)
         # The loud frames' spectrum, far down, keeps the floor finite where the
         # recording holds nothing (digital silence, a band-limited channel).
         floor = floor + loud * 10.0 ** (-PREWHITEN_SNR_DB / 10.0)

@@ -224,3 +224,14 @@ def test_no_engine_heard_in_noise_or_silence(cyl):
     tr = harmtrack.track(y, SR, preset="engine", cylinders=cyl, rpm_min=800, rpm_max=4000)
     assert np.mean(tr.voiced[:250]) >= 0.95
     assert np.mean(tr.voiced[350:]) <= 0.02
+
+
+def test_steady_engines_across_the_speed_range_are_heard():
+    # A steady engine is a stationary comb of lines; the noise floor must not take
+    # it for noise at any speed (50 Hz firing, 1500 rpm x 4 cylinders, once vanished).
+    for rpm in np.arange(900.0, 3901.0, 150.0):
+        t, r = es.rpm_profile(1.5, kind="steady", rpm=rpm, hop_s=0.01, seed=1)
+        y = es.engine(t, r, SR, cylinders=4, strokes=4, seed=1, highpass_hz=150.0,
+                      noise_snr_db=10.0, noise_color="white")
+        tr = harmtrack.track(y, SR, preset="engine", cylinders=4, rpm_min=800, rpm_max=4000)
+        assert _within(tr, r) >= 0.95, rpm

@@ -56,6 +56,17 @@ def test_cli_writes_long_csv_as_produced_with_the_usual_bytes(long_wav, tmp_path
     assert cols["time_s"].size == 2000
 
 
+@pytest.mark.parametrize("fmt", ["npz", "json"])
+def test_cli_spools_long_npz_and_json_with_the_usual_bytes(long_wav, tmp_path, small_threshold,
+                                                           fmt):
+    out = tmp_path / f"talk.{fmt}"
+    assert cli.main(["track", str(long_wav), "-o", str(out), "-q"]) == 0
+    ref = tmp_path / f"ref.{fmt}"
+    write_labels(harmtrack.track_file(long_wav), ref)
+    assert out.read_bytes() == ref.read_bytes()
+    assert sorted(p.name for p in tmp_path.iterdir()) == sorted([out.name, ref.name])
+
+
 def test_truncated_long_file_leaves_no_output(long_wav, tmp_path, small_threshold, capsys):
     data = long_wav.read_bytes()
     bad = tmp_path / "cut.wav"

@@ -608,6 +608,9 @@ class FakeStream:
             self._thread.join(5)
         self.active = False
 
+    def abort(self):  # sounddevice's abort: stop without draining
+        self.stop()
+
     def close(self):
         self.stop()
 

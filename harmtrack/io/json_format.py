@@ -27,7 +27,7 @@ from ..errors import HarmtrackError
 from .columns import table_columns, table_units
 from .provenance import dumps_compact
 
-__all__ = ["encode", "decode"]
+__all__ = ["encode", "write", "decode"]
 
 
 def _dump(obj) -> str:
@@ -42,18 +42,26 @@ def _values(name: str, arr) -> list:
 
 def encode(table: dict, provenance: dict) -> bytes:
     """JSON bytes of a checked table (see :func:`harmtrack.io.columns.check_table`)."""
+    import io
+
+    buf = io.StringIO()
+    write(buf, table, provenance)
+    return buf.getvalue().encode("ascii")
+
+
+def write(fh, table: dict, provenance: dict) -> None:
+    """Write the JSON label text of a table to the text stream ``fh``, one column at
+    a time (the table's arrays may be memory-mapped: only one column's text is
+    held at once)."""
     names = table_columns(table)
-    frames = ",\n".join(f"  {_dump(n)}: {_dump(_values(n, table[n]))}" for n in names)
-    text = (
-        "{\n"
-        f' "provenance": {dumps_compact(provenance)},\n'
-        f' "columns": {_dump(table_units(table))},\n'
-        ' "frames": {\n'
-        f"{frames}\n"
-        " }\n"
-        "}\n"
-    )
-    return text.encode("ascii")
+    fh.write("{\n"
+             f' "provenance": {dumps_compact(provenance)},\n'
+             f' "columns": {_dump(table_units(table))},\n'
+             ' "frames": {\n')
+    for i, n in enumerate(names):
+        fh.write(f"  {_dump(n)}: {_dump(_values(n, table[n]))}"
+                 + (",\n" if i < len(names) - 1 else "\n"))
+    fh.write(" }\n}\n")
 
 
 def decode(data: bytes, *, name: str) -> tuple[dict, dict]:

@@ -26,7 +26,7 @@ from ..errors import HarmtrackError
 from .columns import BASE_COLUMNS, amp_name, order_name, table_columns
 from .provenance import dumps_compact
 
-__all__ = ["encode", "decode"]
+__all__ = ["encode", "write", "decode"]
 
 _DATE_TIME = (1980, 1, 1, 0, 0, 0)
 _MEMBER_MODE = 0o644
@@ -52,28 +52,59 @@ def _member(name: str, size: int) -> zipfile.ZipInfo:
     return info
 
 
-def encode(table: dict, provenance: dict) -> bytes:
-    """NPZ bytes of a checked table (see :func:`harmtrack.io.columns.check_table`)."""
-    arrays = {name: table[name].astype("<f8") for name in BASE_COLUMNS}
-    arrays["voiced"] = table["voiced"].astype(np.uint8)
-    arrays["model_order"] = table["model_order"].astype("<i8")
-    arrays["harmonic_amplitudes"] = table["harmonic_amplitudes"].astype("<f8")
+def _members(table: dict, provenance: dict) -> dict:
+    """The archive's arrays, by member name (no copies of float64 columns)."""
+    arrays = {name: np.asarray(table[name], dtype="<f8") for name in BASE_COLUMNS}
+    arrays["voiced"] = np.asarray(table["voiced"]).astype(np.uint8)
+    arrays["model_order"] = np.asarray(table["model_order"]).astype("<i8")
+    arrays["harmonic_amplitudes"] = np.asarray(table["harmonic_amplitudes"], dtype="<f8")
     if "rpm" in table:
-        arrays["rpm"] = table["rpm"].astype("<f8")
-        arrays["uneven_db"] = table["uneven_db"].astype("<f8")
-        arrays["uneven_flag"] = table["uneven_flag"].astype(np.uint8)
+        arrays["rpm"] = np.asarray(table["rpm"], dtype="<f8")
+        arrays["uneven_db"] = np.asarray(table["uneven_db"], dtype="<f8")
+        arrays["uneven_flag"] = np.asarray(table["uneven_flag"]).astype(np.uint8)
         names = [n for n in table_columns(table) if n.startswith("order_")
                  and not n.endswith("_db")]
         arrays["order_numbers"] = np.array([float(n[len("order_"):]) for n in names], "<f8")
         arrays["order_amplitudes"] = np.stack([table[n] for n in names], axis=1).astype("<f8") \
             if names else np.zeros((table["time_s"].size, 0))
     arrays["provenance"] = np.array(dumps_compact(provenance))
+    return arrays
+
+
+#: Rows of a member's array written to the archive at a time.
+_CHUNK_ROWS = 65536
+
+
+def encode(table: dict, provenance: dict) -> bytes:
+    """NPZ bytes of a checked table (see :func:`harmtrack.io.columns.check_table`)."""
     buf = io.BytesIO()
-    with zipfile.ZipFile(buf, "w", allowZip64=True) as zf:
-        for name, arr in arrays.items():
-            data = _npy_bytes(arr)
-            zf.writestr(_member(name, len(data)), data, compresslevel=_COMPRESS_LEVEL)
+    write(buf, table, provenance)
     return buf.getvalue()
+
+
+def write(fh, table: dict, provenance: dict) -> None:
+    """Write the NPZ archive of a table to the seekable binary stream ``fh``, each
+    member in chunks of rows (the table's arrays may be memory-mapped)."""
+    with zipfile.ZipFile(fh, "w", allowZip64=True) as zf:
+        for name, arr in _members(table, provenance).items():
+            if arr.dtype.kind == "U" or arr.ndim == 0 or arr.nbytes < _STORE_BELOW:
+                data = _npy_bytes(arr)
+                zf.writestr(_member(name, len(data)), data, compresslevel=_COMPRESS_LEVEL)
+                continue
+            head = io.BytesIO()
+            np.lib.format.write_array_header_1_0(
+                head, np.lib.format.header_data_from_array_1_0(arr))
+            head_bytes = head.getvalue()
+            info = _member(name, len(head_bytes) + arr.nbytes)
+            info.file_size = len(head_bytes) + arr.nbytes  # the zip64 decision needs it
+            if hasattr(zipfile.ZipInfo, "compress_level"):  # Python >= 3.13
+                info.compress_level = _COMPRESS_LEVEL
+            else:
+                info._compresslevel = _COMPRESS_LEVEL
+            with zf.open(info, "w") as out:
+                out.write(head_bytes)
+                for i in range(0, arr.shape[0], _CHUNK_ROWS):
+                    out.write(np.ascontiguousarray(arr[i:i + _CHUNK_ROWS]).tobytes())
 
 
 def _expand(columns: dict) -> dict:
