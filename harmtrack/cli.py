@@ -1,4 +1,4 @@
-"""Command-line interface: ``harmtrack track``, ``batch``, ``score``, ``demo``, ``live``, ``devices``.
+"""Command-line interface: ``harmtrack track``, ``batch``, ``score``, ``plot``, ``demo``, ``live``...
 
 The commands parse options, call the public API, write label files and
 report; they do no signal processing of their own.  Heavy modules are
@@ -169,6 +169,30 @@ def build_parser() -> argparse.ArgumentParser:
                    help="relative error above which a frame is a gross error (default 0.2)")
     s.add_argument("-q", "--quiet", action="store_true", help="print no table")
     s.set_defaults(func=cmd_score)
+
+    g = sub.add_parser(
+        "plot", parents=[common, analysis], help="draw the track over the spectrogram",
+        description="Draw a recording's spectrogram with its f0 track and harmonic positions, "
+                    "and its harmonic amplitudes (engine presets: rpm and the engine-order "
+                    "map, uneven firing marked). Tracks the recording first, or draws an "
+                    "existing label file (--labels). PNG, SVG or PDF by the output's extension.",
+    )
+    g.add_argument("input", metavar="IN",
+                   help="audio file (WAV, FLAC, OGG...), or a batch's output folder (a one-page "
+                        "overview of its summary: f0 per file, voiced share, failures)")
+    g.add_argument("-o", "--output", metavar="FIG", required=True,
+                   help="figure file: .png, .svg or .pdf")
+    g.add_argument("--labels", metavar="FILE",
+                   help="draw these labels (harmtrack CSV, NPZ or JSON) instead of tracking")
+    g.add_argument("--log-freq", action="store_true",
+                   help="logarithmic frequency axis for the spectrogram")
+    g.add_argument("--max-freq", type=float, metavar="HZ", help="top of the spectrogram, Hz")
+    g.add_argument("--harmonics", type=int, default=8, metavar="N",
+                   help="harmonics overlaid, 1 to 50 (default 8)")
+    g.add_argument("--size", metavar="WxH", default="10x6",
+                   help="figure size in inches (default 10x6)")
+    g.add_argument("--dpi", type=int, default=120, help="PNG resolution, dots per inch (default 120)")
+    g.set_defaults(func=cmd_plot)
 
     from . import live  # light at import: the capture modules load inside its commands
 
@@ -417,6 +441,78 @@ def cmd_score(args) -> int:
     return EXIT_OK
 
 
+def cmd_plot(args) -> int:
+    """``harmtrack plot IN -o FIG``."""
+    from . import api, plotting
+    from .audio import load
+    from .errors import HarmtrackError
+    from .io.atomic import check_destination
+
+    check_destination(args.output)
+    try:
+        w, h = (float(v) for v in args.size.lower().split("x"))
+        if not (1.0 <= w <= 100.0 and 1.0 <= h <= 100.0):
+            raise ValueError
+    except ValueError:
+        raise HarmtrackError(f"--size {args.size}: give width x height in inches, e.g. 10x6 "
+                             "(1 to 100 each)") from None
+    if os.path.isdir(args.input):  # a batch's output folder: its overview
+        from .batch import SUMMARY_NAME
+
+        summary = os.path.join(args.input, SUMMARY_NAME)
+        if not os.path.isfile(summary):
+            raise HarmtrackError(f"{args.input}: a folder without {SUMMARY_NAME}; give an audio "
+                                 "file, or a batch's output folder")
+        fig = plotting.plot_batch_overview(summary, title=os.path.basename(
+            os.path.normpath(args.input)), figsize=(w, h))
+        out = plotting.save_figure(fig, args.output, dpi=args.dpi)
+        print(f"figure {out}")
+        return EXIT_OK
+    y, sr, _ = load(args.input)
+    if args.labels:
+        track = _track_from_labels(args.labels, sr)
+    else:
+        try:
+            track = api.track(y, sr, **_track_options(args))
+        except HarmtrackError as exc:
+            raise _naming(exc, args.input) from None
+    fig = plotting.plot_track(y, sr, track, freq_scale="log" if args.log_freq else "linear",
+                              max_freq_hz=args.max_freq, harmonics=args.harmonics,
+                              title=os.path.basename(args.input), figsize=(w, h))
+    out = plotting.save_figure(fig, args.output, dpi=args.dpi)
+    print(f"figure {out}")
+    return EXIT_OK
+
+
+def _track_from_labels(path: str, sr: float):
+    """A :class:`Track` from a label file (for drawing)."""
+    import numpy as np
+
+    from .io import read_labels
+    from .result import Track
+
+    cols, prov = read_labels(path)
+    amp_keys = sorted((k for k in cols if k.startswith("amp_h")), key=lambda k: int(k[5:]))
+    amps = np.column_stack([cols[k] for k in amp_keys]) if amp_keys else \
+        np.zeros((cols["time_s"].size, 0))
+    settings = dict(prov.get("settings") or {})
+    if "hop_s" not in settings and cols["time_s"].size > 1:
+        settings["hop_s"] = float(np.median(np.diff(cols["time_s"])))
+    kw = {}
+    if "rpm" in cols:
+        names = sorted((k for k in cols if k.startswith("order_") and not k.endswith("_db")),
+                       key=lambda k: float(k[6:]))
+        kw = dict(rpm=cols["rpm"], uneven_db=cols["uneven_db"],
+                  uneven_flag=np.asarray(cols["uneven_flag"], bool),
+                  order_numbers=np.array([float(k[6:]) for k in names]),
+                  order_amplitudes=np.column_stack([cols[k] for k in names]))
+    return Track(times=cols["time_s"], f0_hz=cols["f0_hz"], voiced=cols["voiced"],
+                 voicing_prob=cols["voicing_prob"], harmonic_amplitudes=amps,
+                 model_order=cols["model_order"], hnr_db=cols["hnr_db"],
+                 sr=float(prov.get("sr") or sr), frame_s=float(prov.get("frame_s") or 0.05),
+                 settings=settings, **kw)
+
+
 def _refuse_overwriting_input(source: str, output: str) -> None:
     from .errors import HarmtrackError
 
@@ -561,8 +657,8 @@ def main(argv: list[str] | None = None) -> int:
         return exc.code if isinstance(exc.code, int) else EXIT_USAGE
     if args.func is None:
         parser.print_usage(sys.stderr)
-        print(f"{PROG}: error: a command is required (track, batch, score, demo, live or "
-              "devices)",
+        print(f"{PROG}: error: a command is required (track, batch, score, plot, demo, live "
+              "or devices)",
               file=sys.stderr)
         return EXIT_USAGE
     from .errors import HarmtrackWarning
