@@ -262,8 +262,9 @@ def _lag_push(lf, ev, unv, a, log_switch, log_stay, lag, t0, delta, new, back_r,
               alpha_r, tr, beta, nb, out_state, out_prob):
     """Frames ``t0 .. t0 + F - 1`` (rows of ``lf``, ``ev``, ``unv``) into the fixed-lag
     decoder whose rings (``lag + 1`` rows, row ``t % (lag + 1)`` for frame ``t``)
-    hold the frames before; decisions for the frames ``lag`` behind each new
-    one go to ``out_state`` / ``out_prob``.  Returns their number."""
+    hold the frames before (``tr``: the transition potentials into each); decisions
+    for the frames ``lag`` behind each new one go to ``out_state`` / ``out_prob``.
+    Returns their number."""
     R = lag + 1
     K = lf.shape[1]
     S = K + 1
@@ -287,8 +288,8 @@ def _lag_push(lf, ev, unv, a, log_switch, log_stay, lag, t0, delta, new, back_r,
             _viterbi_step(lf_r[rp], lf[f], ev[f], unv[f], a, log_switch, log_stay, delta, new,
                           back_r[r])
             _emission_row(lf[f], ev[f], unv[f], em_r[r])
-            _transition(lf_r[rp], lf[f], a, stay, switch, tr)
-            _forward_step(alpha_r[rp], tr, em_r[r], alpha_r[r])
+            _transition(lf_r[rp], lf[f], a, stay, switch, tr[r])
+            _forward_step(alpha_r[rp], tr[r], em_r[r], alpha_r[r])
         for j in range(K):
             lf_r[r, j] = lf[f, j]
         if t >= lag:
@@ -298,8 +299,7 @@ def _lag_push(lf, ev, unv, a, log_switch, log_stay, lag, t0, delta, new, back_r,
                 beta[j] = 1.0
             for tau in range(t, u, -1):
                 s = back_r[tau % R, s]
-                _transition(lf_r[(tau - 1) % R], lf_r[tau % R], a, stay, switch, tr)
-                _backward_step(tr, em_r[tau % R], beta, nb)
+                _backward_step(tr[tau % R], em_r[tau % R], beta, nb)
             out_state[n_out] = s
             out_prob[n_out] = _voiced_share(alpha_r[u % R], beta)
             n_out += 1
@@ -313,8 +313,6 @@ def _lag_flush(a, log_switch, log_stay, lag, t_end, delta, back_r, lf_r, em_r, a
     (as the offline recursions end).  Returns their number."""
     R = lag + 1
     S = delta.shape[0]
-    stay = math.exp(log_stay)
-    switch = math.exp(log_switch)
     first = max(0, t_end - lag)
     n = t_end - first
     s = _argmax(delta)
@@ -326,8 +324,7 @@ def _lag_flush(a, log_switch, log_stay, lag, t_end, delta, back_r, lf_r, em_r, a
         if tau == 0:
             break
         s = back_r[tau % R, s]
-        _transition(lf_r[(tau - 1) % R], lf_r[tau % R], a, stay, switch, tr)
-        _backward_step(tr, em_r[tau % R], beta, nb)
+        _backward_step(tr[tau % R], em_r[tau % R], beta, nb)
     return n
 
 
@@ -361,7 +358,7 @@ class FixedLagDecoder:
         self._lf = np.full((R, K), np.nan)
         self._em = np.zeros((R, S))
         self._alpha = np.zeros((R, S))
-        self._tr = np.zeros((S, S))
+        self._tr = np.zeros((R, S, S))  # transition into each frame of the ring
         self._beta = np.ones(S)
         self._nb = np.empty(S)
         self.frames_in = 0
