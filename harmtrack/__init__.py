@@ -20,6 +20,7 @@ __all__ = [
     "__version__",
     "track",
     "track_file",
+    "StreamTracker",
     "Track",
     "TrackerConfig",
     "make_config",
@@ -37,8 +38,12 @@ def __getattr__(name: str):
         from . import api
 
         return getattr(api, name)
+    if name == "StreamTracker":
+        from .stream import StreamTracker
+
+        return StreamTracker
     raise AttributeError(f"module 'harmtrack' has no attribute {name!r}")
 
 
 def __dir__():
-    return sorted(set(globals()) | {"track", "track_file"})
+    return sorted(set(globals()) | {"track", "track_file", "StreamTracker"})

@@ -136,7 +136,7 @@ class StreamTracker:
             raise HarmtrackError(f"lag_s={lag_s!r} is outside the allowed range (0, 10] s")
         self._n_in = 0
         self._ended = False
-        self._times_done = 0
+        self._frames_done = 0
         if cfg.is_engine:
             self._impl = _EngineStream(cfg, sr)
         else:
@@ -158,7 +158,7 @@ class StreamTracker:
     @property
     def frames_done(self) -> int:
         """Frames returned so far."""
-        return self._times_done
+        return self._frames_done
 
     def feed(self, samples) -> Track:
         """Add samples (1-D, any length); returns the frames finished meanwhile."""
@@ -184,7 +184,7 @@ class StreamTracker:
         return self._count(self._impl.flush(self._n_in))
 
     def _count(self, tr: Track) -> Track:
-        self._times_done += len(tr)
+        self._frames_done += len(tr)
         return tr
 
 
@@ -321,7 +321,6 @@ class _HarmonicStream:
         self.cand_order = np.zeros((0, self.K), dtype=np.int64)
         self.noise = np.zeros(0)
         self.n_frames_total = None
-        self.hop_in = cfg.hop_s * sr_in
         self.pending: list = []
         self.pending_n = 0
         self.step_in = max(1, int(cfg.hop_s * sr_in))
