@@ -441,7 +441,7 @@ def fir_segment(x: np.ndarray, x0: int, n_total: int | None, h: np.ndarray, lo: 
     return np.ascontiguousarray(out[::step])
 
 
-def whiten_and_decimate(y: np.ndarray, h: np.ndarray, nfft: int = 8192):
+def whiten_and_decimate(y: np.ndarray, h: np.ndarray, nfft: int = 4096):
     """``(prewhiten(y, h), decimate(prewhiten(y, h), 2))`` in one pass.
 
     Each block's transform serves both outputs: multiplied by the whitening

@@ -56,7 +56,7 @@ WHITENING_TAPS = 129
 NOISE_FLOOR_DB = 90.0
 
 #: Frames processed per block: small enough that the padded FFT buffers stay in cache.
-BLOCK_FRAMES = 32
+BLOCK_FRAMES = 64
 
 
 @dataclasses.dataclass(frozen=True)
