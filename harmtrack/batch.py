@@ -355,7 +355,8 @@ def _run_local(chunks, workers, on_done):
             if h.is_alive():
                 h.terminate()
         for h in helpers:
-            h.join()
+            if h.pid is not None:  # started (a helper that failed to start has none)
+                h.join()
         results.close()
         results.cancel_join_thread()
 
