@@ -1,11 +1,12 @@
 """Long recordings: read in blocks and tracked by the streaming engine, in bounded memory.
 
 A file whose decoded samples would take more than :data:`BLOCKS_ABOVE_BYTES`
-is not loaded whole: :func:`track_file_blocks` reads it in blocks of
+is not loaded whole: :func:`iter_file_parts` reads it in blocks of
 :data:`BLOCK_S` with soundfile, feeds a :class:`harmtrack.stream.StreamTracker`
 (with :data:`FILE_LAG_S` of look-ahead: a file has no hurry) and hands each
-finished part to the caller, who writes it as it comes
-(:class:`CsvLabelStream`) or gathers it into preallocated arrays
+finished part to the caller, who writes CSV rows as they come
+(:class:`CsvLabelStream`), spools NPZ or JSON frames to disk
+(:func:`write_labels_in_blocks`), or gathers them into arrays allocated once
 (:func:`track_file_in_blocks`).  The input's SHA-256 is computed over its bytes
 first, so that the provenance, which heads a CSV file, is complete.
 """
