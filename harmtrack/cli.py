@@ -470,7 +470,10 @@ def cmd_plot(args) -> int:
         return EXIT_OK
     y, sr, _ = load(args.input)
     if args.labels:
-        track = _track_from_labels(args.labels, sr)
+        from .io import read_labels
+        from .io.columns import table_track
+
+        track = table_track(*read_labels(args.labels))
     else:
         try:
             track = api.track(y, sr, **_track_options(args))
@@ -482,35 +485,6 @@ def cmd_plot(args) -> int:
     out = plotting.save_figure(fig, args.output, dpi=args.dpi)
     print(f"figure {out}")
     return EXIT_OK
-
-
-def _track_from_labels(path: str, sr: float):
-    """A :class:`Track` from a label file (for drawing)."""
-    import numpy as np
-
-    from .io import read_labels
-    from .result import Track
-
-    cols, prov = read_labels(path)
-    amp_keys = sorted((k for k in cols if k.startswith("amp_h")), key=lambda k: int(k[5:]))
-    amps = np.column_stack([cols[k] for k in amp_keys]) if amp_keys else \
-        np.zeros((cols["time_s"].size, 0))
-    settings = dict(prov.get("settings") or {})
-    if "hop_s" not in settings and cols["time_s"].size > 1:
-        settings["hop_s"] = float(np.median(np.diff(cols["time_s"])))
-    kw = {}
-    if "rpm" in cols:
-        names = sorted((k for k in cols if k.startswith("order_") and not k.endswith("_db")),
-                       key=lambda k: float(k[6:]))
-        kw = dict(rpm=cols["rpm"], uneven_db=cols["uneven_db"],
-                  uneven_flag=np.asarray(cols["uneven_flag"], bool),
-                  order_numbers=np.array([float(k[6:]) for k in names]),
-                  order_amplitudes=np.column_stack([cols[k] for k in names]))
-    return Track(times=cols["time_s"], f0_hz=cols["f0_hz"], voiced=cols["voiced"],
-                 voicing_prob=cols["voicing_prob"], harmonic_amplitudes=amps,
-                 model_order=cols["model_order"], hnr_db=cols["hnr_db"],
-                 sr=float(prov.get("sr") or sr), frame_s=float(prov.get("frame_s") or 0.05),
-                 settings=settings, **kw)
 
 
 def _refuse_overwriting_input(source: str, output: str) -> None:

@@ -203,12 +203,10 @@ class CsvLabelStream:
     :func:`harmtrack.io.write_labels` for the same frames and provenance."""
 
     def __init__(self, path):
-        from .io.atomic import check_destination
+        from .io.atomic import AtomicFile
 
-        self.path = check_destination(path)
-        fd, self._tmp = tempfile.mkstemp(dir=self.path.parent, prefix=f".{self.path.name}.",
-                                         suffix=".tmp")
-        self._fh = os.fdopen(fd, "w", encoding="utf-8", newline="")
+        self._file = AtomicFile(path, text=True)
+        self.path = self._file.path
         self._head = False
         self.frames = 0
 
@@ -221,35 +219,19 @@ class CsvLabelStream:
         table = track_table(part, validate=False)
         try:
             if not self._head:
-                self._fh.write(csv_format.encode_head(table, provenance))
+                self._file.fh.write(csv_format.encode_head(table, provenance))
                 self._head = True
-            self._fh.write(csv_format.encode_rows(table))
+            self._file.fh.write(csv_format.encode_rows(table))
         except OSError as exc:
             self.abort()
             raise HarmtrackError(f"{self.path}: cannot write: {exc.strerror or exc}") from None
         self.frames += len(part)
 
     def close(self) -> Path:
-        try:
-            self._fh.flush()
-            os.fsync(self._fh.fileno())
-            self._fh.close()
-            os.chmod(self._tmp, 0o644)
-            os.replace(self._tmp, self.path)
-        except OSError as exc:
-            self.abort()
-            raise HarmtrackError(f"{self.path}: cannot write: {exc.strerror or exc}") from None
-        return self.path
+        return self._file.commit()
 
     def abort(self) -> None:
-        try:
-            self._fh.close()
-        except OSError:
-            pass
-        try:
-            os.unlink(self._tmp)
-        except OSError:
-            pass
+        self._file.abort()
 
 
 #: Track fields gathered frame by frame (the rest are the same for every part).
@@ -322,7 +304,7 @@ def write_labels_in_blocks(path_in, path_out, cfg_options: dict, *, fmt: str
     if fmt == "csv":
         return write_csv_in_blocks(path_in, path_out, cfg_options)
     from .io import json_format, npz_format
-    from .io.atomic import check_destination
+    from .io.atomic import AtomicFile, check_destination
     from .io.columns import track_table
     from .io.provenance import make_provenance
 
@@ -336,25 +318,15 @@ def write_labels_in_blocks(path_in, path_out, cfg_options: dict, *, fmt: str
                 spool.add(part)
         tr = spool.track(settings)
         table, prov = track_table(tr, validate=False), make_provenance(tr)
-        fd, tmp = tempfile.mkstemp(dir=dest.parent, prefix=f".{dest.name}.", suffix=".tmp")
+        out = AtomicFile(dest, text=fmt == "json", encoding="ascii")
         try:
-            if fmt == "npz":
-                with os.fdopen(fd, "w+b") as fh:
-                    npz_format.write(fh, table, prov)
-                    fh.flush()
-                    os.fsync(fh.fileno())
-            else:
-                with os.fdopen(fd, "w", encoding="ascii", newline="") as fh:
-                    json_format.write(fh, table, prov)
-                    fh.flush()
-                    os.fsync(fh.fileno())
-            os.chmod(tmp, 0o644)
-            os.replace(tmp, dest)
-        except OSError as exc:
-            raise HarmtrackError(f"{dest}: cannot write: {exc.strerror or exc}") from None
-        finally:
-            if os.path.exists(tmp):
-                os.unlink(tmp)
+            (npz_format if fmt == "npz" else json_format).write(out.fh, table, prov)
+        except BaseException as exc:
+            out.abort()
+            if isinstance(exc, OSError):
+                raise HarmtrackError(f"{dest}: cannot write: {exc.strerror or exc}") from None
+            raise
+        out.commit()
         # what the summary needs, in memory (the spool files go now)
         copies = {k: np.array(v) for k in _FRAME_FIELDS
                   if k != "harmonic_amplitudes" and (v := getattr(tr, k)) is not None}

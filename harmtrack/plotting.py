@@ -141,7 +141,8 @@ def plot_track(y, sr: float, track, *, freq_scale: str = "linear", max_freq_hz: 
     if not (np.isfinite(top) and 0 < top <= sr / 2.0):
         raise HarmtrackError(f"max frequency {top:g} Hz must lie in (0, {sr / 2:g}] Hz")
     engine = track.is_engine
-    times_s, freqs, db = _spectrogram(y, sr, hop, max(track.frame_s, 4 * hop))
+    frame = track.frame_s if np.isfinite(track.frame_s) else 0.0  # labels may lack it
+    times_s, freqs, db = _spectrogram(y, sr, hop, max(frame, 4 * hop))
     rows = 3 if engine else 2
     ratios = [2.2, 1.0, 1.2] if engine else [2.2, 1.2]
     with plt.rc_context({"font.size": STYLE["font_size"]}):

@@ -63,27 +63,14 @@ def read_track(path) -> tuple[np.ndarray, np.ndarray]:
 
     name = os.fspath(path)
     ext = Path(name).suffix.lower()
-    if ext in (".npz", ".json"):
-        cols, _ = read_labels(name)
-        return _checked(name, cols["time_s"], cols["f0_hz"])
+    labels = ext in (".npz", ".json")
     if ext == ".csv":
         with open(name, "rb") as fh:
-            head = fh.read(512)
-        if head.startswith(b"# harmtrack"):
-            cols, _ = read_labels(name)
-            return _checked(name, cols["time_s"], cols["f0_hz"])
+            labels = fh.read(512).startswith(b"# harmtrack")
+    if labels:  # read_labels checks the columns, their lengths and the times
+        cols, _ = read_labels(name)
+        return cols["time_s"], cols["f0_hz"]
     return read_reference(name)
-
-
-def _checked(name, times, f0):
-    times = np.asarray(times, dtype=np.float64)
-    f0 = np.asarray(f0, dtype=np.float64)
-    if times.shape != f0.shape:
-        raise HarmtrackError(f"{name}: time and f0 columns differ in length "
-                             f"({times.size} and {f0.size})")
-    if times.size > 1 and not np.all(np.diff(times) > 0):
-        raise HarmtrackError(f"{name}: times are not strictly increasing")
-    return times, f0
 
 
 def _key(rel: Path) -> str:

@@ -323,6 +323,7 @@ class _HarmonicStream:
         self.n_frames_total = None
         self.pending: list = []
         self.pending_n = 0
+        self._empty = None
         self.step_in = max(1, int(cfg.hop_s * sr_in))
 
     # -- entry points -------------------------------------------------------------------
@@ -349,8 +350,10 @@ class _HarmonicStream:
         return self._run(xa)
 
     def empty(self) -> Track:
-        return self._track(_EMPTY_I, np.zeros(0), np.zeros(0, dtype=bool), np.zeros(0),
-                           np.zeros((0, self.H)), _EMPTY_I, np.zeros(0))
+        if self._empty is None:  # one shared, frameless result (tiny blocks return it often)
+            self._empty = self._track(_EMPTY_I, np.zeros(0), np.zeros(0, dtype=bool),
+                                      np.zeros(0), np.zeros((0, self.H)), _EMPTY_I, np.zeros(0))
+        return self._empty
 
     # -- the stages ---------------------------------------------------------------------
 
@@ -483,14 +486,13 @@ class _HarmonicStream:
         if self.n_frames_total is not None:
             f_end = self.n_frames_total
         else:
-            f_end = self.next_frame
-            while True:
-                i = f_end
-                es = spectral.frame_starts(np.array([i]), rs.hop, rs.frame_len)[0] + rs.frame_len
-                ea = spectral.frame_starts(np.array([i]), rc.hop, rc.frame_len)[0] + rc.frame_len
-                if es > ysb.end or ea > self.yw.end:
-                    break
-                f_end += 1
+            # frame ends grow with the index: count the leading frames that fit
+            n_try = max(1, int(self.yw.end / rc.hop) + 2 - self.next_frame)
+            idx = np.arange(self.next_frame, self.next_frame + n_try)
+            fits = ((spectral.frame_starts(idx, rs.hop, rs.frame_len) + rs.frame_len <= ysb.end)
+                    & (spectral.frame_starts(idx, rc.hop, rc.frame_len) + rc.frame_len
+                       <= self.yw.end))
+            f_end = self.next_frame + int(np.argmin(fits)) if not fits.all() else int(idx[-1]) + 1
         states, probs = [], []
         if f_end > self.next_frame:
             idx = np.arange(self.next_frame, f_end)

@@ -8,7 +8,7 @@ from pathlib import Path
 
 from ..errors import HarmtrackError
 
-__all__ = ["check_destination", "atomic_write_bytes"]
+__all__ = ["check_destination", "atomic_write_bytes", "AtomicFile"]
 
 _NEW_FILE_MODE = 0o644
 
@@ -39,17 +39,70 @@ def check_destination(path: str | os.PathLike) -> Path:
     return path
 
 
-def atomic_write_bytes(path: str | os.PathLike, data: bytes, *, durable: bool = True) -> Path:
-    """Write ``data`` to ``path`` atomically.
+class AtomicFile:
+    """A file written into a temporary file next to ``path`` and renamed over it by
+    :meth:`commit`, so readers see the old file or the whole new one, never a mix.
 
-    The bytes go to a temporary file in the destination folder, which is
-    flushed, synced to disk (with ``durable``) and renamed over ``path``.
+    ``fh`` is the open temporary file (binary, or text with ``text=True``).
+    :meth:`abort` (or any failure in :meth:`commit`) removes the temporary file
+    and leaves an existing ``path`` as it was.  A replaced file keeps its
+    permission bits; a new one gets ``rw-r--r--``.
+
+    Raises
+    ------
+    HarmtrackError
+        See :func:`check_destination`; also an operating-system failure while
+        creating or committing the file, with the path in the message.
+    """
+
+    def __init__(self, path: str | os.PathLike, *, text: bool = False, encoding: str = "utf-8"):
+        self.path = path = check_destination(path)
+        try:
+            self._mode = path.stat().st_mode & 0o7777 if path.exists() else _NEW_FILE_MODE
+            fd, self.tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.",
+                                            suffix=".tmp")
+        except OSError as exc:
+            raise HarmtrackError(f"{path}: cannot write: {exc.strerror or exc}") from None
+        self.fh = (os.fdopen(fd, "w", encoding=encoding, newline="") if text
+                   else os.fdopen(fd, "w+b"))
+
+    def commit(self, *, durable: bool = True) -> Path:
+        """Flush (and with ``durable`` sync) the file and rename it to its name."""
+        try:
+            self.fh.flush()
+            if durable:
+                os.fsync(self.fh.fileno())
+            self.fh.close()
+            os.chmod(self.tmp, self._mode)
+            os.replace(self.tmp, self.path)
+        except BaseException as exc:
+            self.abort()
+            if isinstance(exc, OSError):
+                raise HarmtrackError(f"{self.path}: cannot write: {exc.strerror or exc}") from None
+            raise
+        if durable:
+            _sync_folder(self.path.parent)
+        return self.path
+
+    def abort(self) -> None:
+        """Close and remove the temporary file."""
+        try:
+            self.fh.close()
+        except OSError:
+            pass
+        try:
+            os.unlink(self.tmp)
+        except OSError:
+            pass
+
+
+def atomic_write_bytes(path: str | os.PathLike, data: bytes, *, durable: bool = True) -> Path:
+    """Write ``data`` to ``path`` atomically (see :class:`AtomicFile`).
+
     Without ``durable`` the write is still atomic for other processes and
     survives the writer being killed, but not necessarily a power cut; callers
     that validate files on their next run (the batch's resume check) save the
-    two syncs per file that way.  On any failure the
-    temporary file is removed and an existing ``path`` is left as it was.
-    A replaced file keeps its permission bits; a new one gets ``rw-r--r--``.
+    two syncs per file that way.
 
     Returns
     -------
@@ -62,31 +115,15 @@ def atomic_write_bytes(path: str | os.PathLike, data: bytes, *, durable: bool = 
         See :func:`check_destination`; also any operating-system failure while
         writing (disk full, permission denied...), with the path in the message.
     """
-    path = check_destination(path)
+    f = AtomicFile(path)
     try:
-        mode = path.stat().st_mode & 0o7777 if path.exists() else _NEW_FILE_MODE
-        fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=f".{path.name}.", suffix=".tmp")
-    except OSError as exc:
-        raise HarmtrackError(f"{path}: cannot write: {exc.strerror or exc}") from None
-    try:
-        with os.fdopen(fd, "wb") as fh:
-            fh.write(data)
-            fh.flush()
-            if durable:
-                os.fsync(fh.fileno())
-        os.chmod(tmp, mode)
-        os.replace(tmp, path)
+        f.fh.write(data)
     except BaseException as exc:
-        try:
-            os.unlink(tmp)
-        except OSError:
-            pass
+        f.abort()
         if isinstance(exc, OSError):
-            raise HarmtrackError(f"{path}: cannot write: {exc.strerror or exc}") from None
+            raise HarmtrackError(f"{f.path}: cannot write: {exc.strerror or exc}") from None
         raise
-    if durable:
-        _sync_folder(path.parent)
-    return path
+    return f.commit(durable=durable)
 
 
 def _sync_folder(folder: Path) -> None:

@@ -22,6 +22,7 @@ __all__ = [
     "column_units",
     "columns_markdown",
     "track_table",
+    "table_track",
     "check_table",
     "ENGINE_COLUMNS",
     "order_name",
@@ -192,6 +193,31 @@ def track_table(track, *, validate: bool = True) -> dict[str, np.ndarray]:
             table[order_name(q)] = oa[:, j]
             table[order_name(q, True)] = oa_db[:, j]
     return check_table(table, name="<track>") if validate else table
+
+
+def table_track(columns: dict, provenance: dict):
+    """A :class:`harmtrack.Track` from a checked table and its provenance (the
+    inverse of :func:`track_table`, for drawing or re-writing read labels)."""
+    from ..result import Track
+
+    settings = dict(provenance.get("settings") or {})
+    t = columns["time_s"]
+    if "hop_s" not in settings and t.size > 1:
+        settings["hop_s"] = float(np.median(np.diff(t)))
+    engine = {}
+    if "rpm" in columns:
+        q = _order_keys(columns)
+        engine = dict(rpm=columns["rpm"], uneven_db=columns["uneven_db"],
+                      uneven_flag=np.asarray(columns["uneven_flag"], dtype=bool),
+                      order_numbers=np.array(q),
+                      order_amplitudes=np.column_stack([columns[order_name(v)] for v in q])
+                      if q else np.zeros((t.size, 0)))
+    return Track(times=t, f0_hz=columns["f0_hz"], voiced=columns["voiced"],
+                 voicing_prob=columns["voicing_prob"],
+                 harmonic_amplitudes=columns["harmonic_amplitudes"],
+                 model_order=columns["model_order"], hnr_db=columns["hnr_db"],
+                 sr=float(provenance.get("sr") or np.nan),
+                 frame_s=float(provenance.get("frame_s") or np.nan), settings=settings, **engine)
 
 
 def check_table(columns: dict, *, name: str) -> dict[str, np.ndarray]:
