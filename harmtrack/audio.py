@@ -6,6 +6,7 @@ import hashlib
 import io
 import os
 import re
+import struct
 from dataclasses import dataclass
 
 import numpy as np
@@ -79,16 +80,21 @@ def decode(raw: bytes, *, name: str, sha256: str | None = None
 
     if not raw:
         raise InputError(f"{name}: empty file (0 bytes)")
-    try:
-        with sf.SoundFile(io.BytesIO(raw)) as f:
-            sr = float(f.samplerate)
-            declared = f.frames
-            channels = f.channels
-            fmt, subtype = f.format, f.subtype
-            data = f.read(dtype="float64", always_2d=True)
-    except (sf.LibsndfileError, RuntimeError, TypeError, ValueError) as exc:
-        reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
-        raise InputError(f"{name}: not a readable audio file ({_plain(reason)})") from None
+    plain = _plain_pcm16_wav(raw)
+    if plain is not None:  # the common case, without the audio library's set-up
+        data, sr = plain
+        declared, channels, fmt, subtype = data.shape[0], data.shape[1], "WAV", "PCM_16"
+    else:
+        try:
+            with sf.SoundFile(io.BytesIO(raw)) as f:
+                sr = float(f.samplerate)
+                declared = f.frames
+                channels = f.channels
+                fmt, subtype = f.format, f.subtype
+                data = f.read(dtype="float64", always_2d=True)
+        except (sf.LibsndfileError, RuntimeError, TypeError, ValueError) as exc:
+            reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
+            raise InputError(f"{name}: not a readable audio file ({_plain(reason)})") from None
     if data.shape[0] < declared:
         raise InputError(
             f"{name}: truncated audio file ({data.shape[0]} of {declared} declared samples readable)"
@@ -103,6 +109,39 @@ def decode(raw: bytes, *, name: str, sha256: str | None = None
     y = as_mono(data.T, name=name)
     check_signal(y, sr, name=name)
     return y, sr, info
+
+
+def _plain_pcm16_wav(raw: bytes) -> tuple[np.ndarray, float] | None:
+    """Samples (frames, channels) and rate of a whole, plain 16-bit PCM WAV file;
+    None for anything else (other encodings, extensible headers, a short data
+    chunk...), which the audio library then reads.
+
+    The RIFF WAVE layout (a ``fmt `` chunk with format tag 1, then the ``data``
+    chunk; chunks padded to even sizes) is Microsoft's published one; samples
+    are scaled by 1/32768, as the audio library scales them.
+    """
+    if len(raw) < 44 or raw[:4] != b"RIFF" or raw[8:12] != b"WAVE":
+        return None
+    pos, fmt = 12, None
+    while pos + 8 <= len(raw):
+        cid, size = raw[pos:pos + 4], int.from_bytes(raw[pos + 4:pos + 8], "little")
+        body = pos + 8
+        if cid == b"fmt ":
+            if size < 16 or body + 16 > len(raw):
+                return None
+            tag, channels, rate, _, align, bits = struct.unpack_from("<HHIIHH", raw, body)
+            if tag != 1 or bits != 16 or channels < 1 or rate < 1 or align != 2 * channels:
+                return None
+            fmt = (channels, rate)
+        elif cid == b"data":
+            if fmt is None or body + size > len(raw):
+                return None
+            channels, rate = fmt
+            frames = size // (2 * channels)
+            data = np.frombuffer(raw, dtype="<i2", count=frames * channels, offset=body)
+            return (data.reshape(frames, channels) / 32768.0), float(rate)
+        pos = body + size + (size & 1)
+    return None
 
 
 def _plain(reason: str) -> str:

@@ -241,19 +241,6 @@ def _clean_stale_temporaries(outdir: Path) -> None:
                     pass
 
 
-def _warm_up() -> None:
-    """Load the tracker's compiled kernels in this process (a short harmonic tone,
-    so that the search, the smoother and the fit all run)."""
-    from . import api
-
-    t = np.arange(4800) / 16000.0
-    tone = sum(np.sin(2 * np.pi * 150.0 * k * t) / k for k in range(1, 6))
-    try:
-        api.track(0.1 * tone, 16000.0)
-    except HarmtrackError:  # pragma: no cover - nothing to warm
-        pass
-
-
 def label_chunk(tasks: list) -> list:
     """:func:`label_one` for each task of a chunk (one round trip to a worker)."""
     return [label_one(t) for t in tasks]
@@ -297,6 +284,10 @@ def _run_local(chunks, workers, on_done):
     send their records back through a queue whose sending thread lets them go
     on labelling meanwhile; this process takes them between its own chunks.  A
     chunk whose helper died before sending it back is labelled here at the end.
+
+    Helpers are processes of their own, set up for labelling
+    (:func:`harmtrack.worker_setup.prepare_worker`); this process is left as it
+    is, unless its owner (the command line) has set it up already.
     """
     if workers <= 1 or len(chunks) <= 1:
         for chunk in chunks:
@@ -306,11 +297,10 @@ def _run_local(chunks, workers, on_done):
     import multiprocessing
     import queue
 
-    # Forked helpers inherit the loaded modules and compiled kernels of this
-    # process (warmed up first), which saves each about half a second of
-    # start-up; where fork is missing, helpers start afresh.
+    # Forked helpers inherit the loaded modules, compiled kernels and set-up of
+    # this process, which saves each about 0.4 s of start-up; where fork is
+    # missing, helpers start afresh.
     if "fork" in multiprocessing.get_all_start_methods():
-        _warm_up()
         ctx = multiprocessing.get_context("fork")
     else:  # pragma: no cover - platforms without fork
         ctx = multiprocessing.get_context("spawn")
@@ -373,6 +363,9 @@ def _claim(counter, n: int):
 
 def _helper(chunks, counter, results, parent_pid: int) -> None:
     """A helper process: label claimed chunks and send their records back."""
+    from .worker_setup import prepare_worker
+
+    prepare_worker()  # nothing left to do when forked from a prepared process
     while os.getppid() == parent_pid:  # a helper does not outlive its batch
         i = _claim(counter, len(chunks))
         if i is None:
@@ -404,6 +397,11 @@ def _run_dask(chunks, scheduler, workers, on_done):
                 cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=True,
                                        dashboard_address=None)
             client = Client(cluster)
+            # the cluster's workers are this batch's own processes: set them up as
+            # local helpers are (a cluster of somebody else's is left as it is)
+            from .worker_setup import prepare_worker
+
+            client.run(prepare_worker)
         elif os.path.isfile(scheduler):
             client = Client(scheduler_file=scheduler, timeout="10s")
         else:

@@ -396,6 +396,11 @@ def cmd_batch(args) -> int:
         from .errors import HarmtrackError
 
         raise HarmtrackError(f"--workers {args.workers}: give 1 to 1024")
+    if args.scheduler is None:
+        # this process labels files too, and its helpers are forked from it
+        from .worker_setup import prepare_worker
+
+        prepare_worker()
     progress = None if args.quiet else _progress_printer(sys.stderr)
     rep = batch.run_batch(tasks, args.output_dir, workers=args.workers,
                           scheduler=args.scheduler, dataset=not args.no_dataset,

@@ -2,7 +2,9 @@
 
 from __future__ import annotations
 
+import dataclasses
 import hashlib
+import io
 import json
 import os
 import zipfile
@@ -199,6 +201,37 @@ def test_npz_layout_is_plain_numpy_and_dated_fixed(tmp_path):
         np.testing.assert_array_equal(z["voiced"], [0, 1, 1, 0])
     with zipfile.ZipFile(p) as zf:
         assert {info.date_time for info in zf.infolist()} == {(1980, 1, 1, 0, 0, 0)}
+
+
+@pytest.mark.parametrize("case", ["toy", "voice", "engine", "column-major"])
+def test_npz_built_in_memory_equals_the_zipfile_writer(case):
+    # The ZIP layout is PKWARE's APPNOTE.TXT; Python's zipfile module is the
+    # reference writer: the in-memory archive of a label table must be its bytes.
+    from harmtrack import engine_synth
+    from harmtrack.io import npz_format
+    from harmtrack.io.columns import track_table
+
+    if case == "toy":
+        tr = _toy_track()
+    elif case == "column-major":  # a matrix stored column by column reads back the same
+        tr = harmtrack.track(_harmonic_signal(dur=3.0), SR)
+        tr = dataclasses.replace(tr, harmonic_amplitudes=np.asfortranarray(tr.harmonic_amplitudes))
+    elif case == "voice":
+        tr = harmtrack.track(_harmonic_signal(dur=3.0), SR)
+    else:
+        t, rpm = engine_synth.rpm_profile(3.0, kind="steady", rpm=1800.0, seed=1)
+        tr = harmtrack.track(engine_synth.engine(t, rpm, SR, cylinders=4, seed=1), SR,
+                             preset="engine", cylinders=4)
+    table = track_table(tr, validate=False)
+    prov = hio.make_provenance(tr, extra={"note": "caf\u00e9 \u2013 archive"})
+    fast = npz_format.encode(table, prov)
+    buf = io.BytesIO()
+    npz_format.write(buf, table, prov)
+    assert fast == buf.getvalue()
+    with zipfile.ZipFile(io.BytesIO(fast)) as zf:
+        assert zf.testzip() is None  # every member's CRC checks out
+    with np.load(io.BytesIO(fast), allow_pickle=False) as z:
+        np.testing.assert_array_equal(z["harmonic_amplitudes"], table["harmonic_amplitudes"])
 
 
 def test_json_layout_has_units_and_null_for_nan(tmp_path):

@@ -18,7 +18,9 @@ from __future__ import annotations
 
 import io
 import json
+import struct
 import zipfile
+import zlib
 
 import numpy as np
 
@@ -67,6 +69,8 @@ def _members(table: dict, provenance: dict) -> dict:
         arrays["order_numbers"] = np.array([float(n[len("order_"):]) for n in names], "<f8")
         arrays["order_amplitudes"] = np.stack([table[n] for n in names], axis=1).astype("<f8") \
             if names else np.zeros((table["time_s"].size, 0))
+    # rows are written in C order, and the headers must say so
+    arrays = {k: np.ascontiguousarray(a) for k, a in arrays.items()}
     arrays["provenance"] = np.array(dumps_compact(provenance))
     return arrays
 
@@ -75,11 +79,73 @@ def _members(table: dict, provenance: dict) -> dict:
 _CHUNK_ROWS = 65536
 
 
+#: Tables up to this many bytes are encoded by :func:`_archive_bytes` in memory;
+#: larger ones go through :func:`write` and the zipfile module.
+_IN_MEMORY_BYTES = 16 << 20
+
+
 def encode(table: dict, provenance: dict) -> bytes:
     """NPZ bytes of a checked table (see :func:`harmtrack.io.columns.check_table`)."""
+    members = _members(table, provenance)
+    if sum(a.nbytes for a in members.values()) <= _IN_MEMORY_BYTES:
+        return _archive_bytes(members)
     buf = io.BytesIO()
     write(buf, table, provenance)
     return buf.getvalue()
+
+
+# ZIP records (PKWARE's APPNOTE.TXT, sections 4.3.7, 4.3.12 and 4.3.16), laid
+# out as the zipfile module lays them out for the members :func:`write` makes:
+# version 2.0 to extract and made by Unix, no flags, no extra fields, no comments.
+_LOCAL = struct.Struct("<4s2B4HL2L2H")
+_CENTRAL = struct.Struct("<4s4B4HL2L5H2L")
+_END = struct.Struct("<4s4H2LH")
+_VERSION = 20
+_DOS_TIME = 0
+_DOS_DATE = (_DATE_TIME[0] - 1980) << 9 | _DATE_TIME[1] << 5 | _DATE_TIME[2]
+_ATTR = (0o100000 | _MEMBER_MODE) << 16
+
+
+def _npy_header(arr: np.ndarray) -> bytes:
+    head = io.BytesIO()
+    np.lib.format.write_array_header_1_0(head, np.lib.format.header_data_from_array_1_0(arr))
+    return head.getvalue()
+
+
+def _archive_bytes(members: dict) -> bytes:
+    """The archive :func:`write` makes, byte for byte, built in memory in one pass
+    (the zipfile module's per-member bookkeeping costs more than the data for
+    the labels of a short file)."""
+    parts, central = [], []
+    offset = 0
+    headers: dict = {}
+    for name, arr in members.items():
+        if arr.dtype.kind == "U" or arr.ndim == 0:
+            data = _npy_bytes(arr)
+        else:
+            key = (arr.dtype.str, arr.shape)
+            if key not in headers:
+                headers[key] = _npy_header(arr)
+            data = headers[key] + np.ascontiguousarray(arr).tobytes()
+        deflate = len(data) >= _STORE_BELOW
+        if deflate:
+            packer = zlib.compressobj(_COMPRESS_LEVEL, zlib.DEFLATED, -15)
+            packed = packer.compress(data) + packer.flush()
+        else:
+            packed = data
+        member = (name + ".npy").encode("ascii")
+        crc = zlib.crc32(data)
+        method = zipfile.ZIP_DEFLATED if deflate else zipfile.ZIP_STORED
+        local = _LOCAL.pack(b"PK\003\004", _VERSION, 0, 0, method, _DOS_TIME, _DOS_DATE,
+                            crc, len(packed), len(data), len(member), 0)
+        central.append(_CENTRAL.pack(b"PK\001\002", _VERSION, 3, _VERSION, 0, 0, method,
+                                     _DOS_TIME, _DOS_DATE, crc, len(packed), len(data),
+                                     len(member), 0, 0, 0, 0, _ATTR, offset) + member)
+        parts += (local, member, packed)
+        offset += len(local) + len(member) + len(packed)
+    directory = b"".join(central)
+    end = _END.pack(b"PK\005\006", 0, 0, len(central), len(central), len(directory), offset, 0)
+    return b"".join(parts) + directory + end
 
 
 def write(fh, table: dict, provenance: dict) -> None:

@@ -60,6 +60,11 @@ def canonical(obj):
     numbers and lists, paths strings, and non-finite floats ``None``.
     Anything else is written as its ``str``.
     """
+    kind = type(obj)
+    if kind is str or kind is int or kind is bool or obj is None:  # the common leaves first
+        return obj
+    if kind is float:
+        return obj if math.isfinite(obj) else None
     if isinstance(obj, dict):
         return {str(k): canonical(v) for k, v in obj.items()}
     if isinstance(obj, (list, tuple)):
@@ -68,7 +73,7 @@ def canonical(obj):
         return canonical(obj.tolist())
     if isinstance(obj, np.generic):
         return canonical(obj.item())
-    if obj is None or isinstance(obj, (bool, int, str)):
+    if isinstance(obj, (bool, int, str)):  # subclasses
         return obj
     if isinstance(obj, float):
         return obj if math.isfinite(obj) else None
