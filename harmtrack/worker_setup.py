@@ -13,8 +13,8 @@ first file (and before helpers are forked, so that they inherit them):
 * :func:`load_kernels` loads the tracker's compiled kernels from their on-disk
   cache with the garbage collector paused, then moves every object alive at
   that point out of the collector's way (:func:`gc.freeze`): later collections
-  stop walking the compiler's hundreds of thousands of objects, and forked
-  helpers stop copying the pages that hold them.
+  stop walking the compiler's objects (about 160,000), and forked helpers copy
+  fewer of the pages that hold them.
 """
 
 from __future__ import annotations
