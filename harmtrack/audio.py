@@ -83,7 +83,7 @@ def decode(raw: bytes, *, name: str, sha256: str | None = None
     plain = _plain_pcm16_wav(raw)
     if plain is not None:  # the common case, without the audio library's set-up
         data, sr = plain
-        declared, channels, fmt, subtype = data.shape[0], data.shape[1], "WAV", "PCM_16"
+        channels, fmt, subtype = data.shape[1], "WAV", "PCM_16"
     else:
         try:
             with sf.SoundFile(io.BytesIO(raw)) as f:
@@ -95,12 +95,11 @@ def decode(raw: bytes, *, name: str, sha256: str | None = None
         except (sf.LibsndfileError, RuntimeError, TypeError, ValueError) as exc:
             reason = str(exc).splitlines()[0] if str(exc) else type(exc).__name__
             raise InputError(f"{name}: not a readable audio file ({_plain(reason)})") from None
-    if data.shape[0] < declared:
-        raise InputError(
-            f"{name}: truncated audio file ({data.shape[0]} of {declared} declared samples readable)"
-        )
-    if fmt == "WAV" and subtype.startswith("PCM"):
-        _check_wav_size(name, raw, declared, channels, subtype)
+        if data.shape[0] < declared:
+            raise InputError(f"{name}: truncated audio file ({data.shape[0]} of {declared} "
+                             f"declared samples readable)")
+        if fmt == "WAV" and subtype.startswith("PCM"):
+            _check_wav_size(name, raw, declared, channels, subtype)
     if data.shape[0] == 0:
         raise InputError(f"{name}: contains no audio samples")
     digest = sha256 or hashlib.sha256(raw).hexdigest()
@@ -111,21 +110,30 @@ def decode(raw: bytes, *, name: str, sha256: str | None = None
     return y, sr, info
 
 
+def _riff_chunks(raw: bytes, end: int):
+    """``(id, body offset, size)`` of each chunk header of a RIFF file held in
+    ``raw`` (or at least its headers), up to byte ``end``; chunks are padded to
+    even sizes (Microsoft's RIFF layout)."""
+    pos = 12
+    while pos + 8 <= min(end, len(raw)):
+        size = int.from_bytes(raw[pos + 4:pos + 8], "little")
+        yield raw[pos:pos + 4], pos + 8, size
+        pos += 8 + size + (size & 1)
+
+
 def _plain_pcm16_wav(raw: bytes) -> tuple[np.ndarray, float] | None:
     """Samples (frames, channels) and rate of a whole, plain 16-bit PCM WAV file;
     None for anything else (other encodings, extensible headers, a short data
     chunk...), which the audio library then reads.
 
     The RIFF WAVE layout (a ``fmt `` chunk with format tag 1, then the ``data``
-    chunk; chunks padded to even sizes) is Microsoft's published one; samples
-    are scaled by 1/32768, as the audio library scales them.
+    chunk) is Microsoft's published one; samples are scaled by 1/32768, as the
+    audio library scales them.
     """
     if len(raw) < 44 or raw[:4] != b"RIFF" or raw[8:12] != b"WAVE":
         return None
-    pos, fmt = 12, None
-    while pos + 8 <= len(raw):
-        cid, size = raw[pos:pos + 4], int.from_bytes(raw[pos + 4:pos + 8], "little")
-        body = pos + 8
+    fmt = None
+    for cid, body, size in _riff_chunks(raw, len(raw)):
         if cid == b"fmt ":
             if size < 16 or body + 16 > len(raw):
                 return None
@@ -140,7 +148,6 @@ def _plain_pcm16_wav(raw: bytes) -> tuple[np.ndarray, float] | None:
             frames = size // (2 * channels)
             data = np.frombuffer(raw, dtype="<i2", count=frames * channels, offset=body)
             return (data.reshape(frames, channels) / 32768.0), float(rate)
-        pos = body + size + (size & 1)
     return None
 
 
@@ -160,11 +167,9 @@ def _check_wav_size(name: str, raw: bytes, declared: int, channels: int, subtype
     if width is None or raw[:4] != b"RIFF" or raw[8:12] != b"WAVE":
         return
     size = len(raw) if size is None else size
-    pos = 12
-    while pos + 8 <= min(size, len(raw)):
-        cid, clen = raw[pos:pos + 4], int.from_bytes(raw[pos + 4:pos + 8], "little")
+    for cid, body, clen in _riff_chunks(raw, size):
         if cid == b"data":
-            avail = size - (pos + 8)
+            avail = size - body
             if clen != 0xFFFFFFFF and avail < clen:
                 have = avail // (width * channels)
                 raise InputError(
@@ -172,7 +177,6 @@ def _check_wav_size(name: str, raw: bytes, declared: int, channels: int, subtype
                     f"{clen // (width * channels)} declared samples)"
                 )
             return
-        pos += 8 + clen + (clen & 1)
 
 
 def as_mono(y, *, name: str = "<array>") -> np.ndarray:

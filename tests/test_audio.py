@@ -27,7 +27,8 @@ def _wav_bytes(y, sr, subtype):
 
 
 def _chunk(cid: bytes, data: bytes) -> bytes:
-    # RIFF chunks: id, little-endian size, data padded to an even length
+    # RIFF chunks (Microsoft's RIFF/WAVE layout): id, little-endian size, data
+    # padded to an even length
     return cid + len(data).to_bytes(4, "little") + data + (b"\0" if len(data) % 2 else b"")
 
 
@@ -35,6 +36,7 @@ def _chunk(cid: bytes, data: bytes) -> bytes:
 @pytest.mark.parametrize("channels", [1, 2, 3])
 @pytest.mark.parametrize("subtype", ["PCM_16", "PCM_24", "PCM_32", "FLOAT", "DOUBLE", "PCM_U8"])
 def test_wav_samples_equal_the_audio_library(channels, subtype):
+    # reference: soundfile (libsndfile) reading the same bytes
     rng = np.random.default_rng(channels)
     y = rng.uniform(-1.0, 1.0, (2001, channels)) * 0.9
     raw = _wav_bytes(y, 22050, subtype)

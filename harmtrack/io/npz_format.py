@@ -151,16 +151,17 @@ def _archive_bytes(members: dict) -> bytes:
 def write(fh, table: dict, provenance: dict) -> None:
     """Write the NPZ archive of a table to the seekable binary stream ``fh``, each
     member in chunks of rows (the table's arrays may be memory-mapped)."""
+    _write_members(fh, _members(table, provenance))
+
+
+def _write_members(fh, members: dict) -> None:
     with zipfile.ZipFile(fh, "w", allowZip64=True) as zf:
-        for name, arr in _members(table, provenance).items():
+        for name, arr in members.items():
             if arr.dtype.kind == "U" or arr.ndim == 0 or arr.nbytes < _STORE_BELOW:
                 data = _npy_bytes(arr)
                 zf.writestr(_member(name, len(data)), data, compresslevel=_COMPRESS_LEVEL)
                 continue
-            head = io.BytesIO()
-            np.lib.format.write_array_header_1_0(
-                head, np.lib.format.header_data_from_array_1_0(arr))
-            head_bytes = head.getvalue()
+            head_bytes = _npy_header(arr)
             info = _member(name, len(head_bytes) + arr.nbytes)
             info.file_size = len(head_bytes) + arr.nbytes  # the zip64 decision needs it
             if hasattr(zipfile.ZipInfo, "compress_level"):  # Python >= 3.13
